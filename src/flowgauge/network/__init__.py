@@ -1,0 +1,52 @@
+"""Networks: the :class:`Network` type, our JSON format, IEEE Common Data Format import,
+bundled networks and the synthetic network generator."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+from ..errors import InputError
+from ._json import network_from_dict, network_to_dict, read_network_json, write_network_json
+from ._model import BUS_PQ, BUS_PV, BUS_REF, Network
+
+__all__ = [
+    "Network", "BUS_PQ", "BUS_PV", "BUS_REF",
+    "load_network", "bundled_names", "network_from_dict", "network_to_dict",
+    "read_network_json", "write_network_json", "synthetic", "read_cdf",
+]
+
+DATA_DIR = Path(__file__).parent / "data"
+
+
+def bundled_names() -> list[str]:
+    """Names of the bundled networks, demo first, then by size."""
+    names = [p.stem for p in DATA_DIR.glob("*.json")]
+    order = {"demo": 0, "ieee14": 1, "ieee30": 2, "ieee57": 3, "ieee118": 4, "ieee300": 5}
+    return sorted(names, key=lambda n: (order.get(n, 99), n))
+
+
+def load_network(spec: str | Path) -> Network:
+    """A bundled network by name, or a network file: our JSON format (``.json``) or the IEEE
+    Common Data Format (any other file)."""
+    spec_s = str(spec)
+    if spec_s in bundled_names():
+        return read_network_json(DATA_DIR / f"{spec_s}.json")
+    path = Path(spec_s)
+    if not path.exists():
+        raise InputError(
+            f"not a bundled network and no such file (bundled: {', '.join(bundled_names())})",
+            where=spec_s)
+    if path.suffix.lower() == ".json":
+        return read_network_json(path)
+    from ._cdf import read_cdf
+    return read_cdf(path)
+
+
+def __getattr__(name: str):
+    if name == "synthetic":
+        from ._synthetic import synthetic
+        return synthetic
+    if name == "read_cdf":
+        from ._cdf import read_cdf
+        return read_cdf
+    raise AttributeError(name)
