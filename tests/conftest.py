@@ -1,0 +1,9 @@
+"""Shared test configuration. Area-specific fixtures live in their own test modules."""
+
+import numpy as np
+import pytest
+
+
+@pytest.fixture
+def rng():
+    return np.random.default_rng(20261201)
