@@ -1,5 +1,28 @@
-"""flowgauge: frozen test sets and a deterministic scorer for learned AC optimal power flow proxies."""
+"""flowgauge: frozen test sets and a deterministic scorer for learned AC optimal power flow proxies.
+
+The everyday calls are importable from here; each lives in its subpackage and is imported on
+first use, so ``import flowgauge`` stays light.
+"""
+
+from __future__ import annotations
+
+import importlib
 
 __version__ = "0.1.0"
 
-__all__ = ["__version__"]
+# public name -> subpackage that defines it
+_API = {
+    "load_network": "flowgauge.network",
+    "Network": "flowgauge.network",
+    "load_split": "flowgauge.splits",
+    "write_predictions": "flowgauge.submission",
+    "score": "flowgauge.scoring",
+}
+
+__all__ = ["__version__", *_API]
+
+
+def __getattr__(name: str):
+    if name in _API:
+        return getattr(importlib.import_module(_API[name]), name)
+    raise AttributeError(f"module 'flowgauge' has no attribute {name!r}")
