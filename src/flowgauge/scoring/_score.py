@@ -1,0 +1,221 @@
+"""``score``: predictions + split -> scorecard. Raw metrics, restoration, aggregation."""
+
+from __future__ import annotations
+
+import os
+from pathlib import Path
+from typing import Any, Callable
+
+import numpy as np
+import pandas as pd
+
+from .. import __version__
+from ..errors import InputError
+from ..network import Network
+from ._aggregate import bootstrap_ci, summary_stats, violation_stats
+from ._metrics import (active_balance_residual_mw, angle_difference_violation_deg, balance_residuals,
+                       bound_violation, branch_flows_mva, generator_cost_per_h, optimality_gap_pct,
+                       thermal_overload_mva, thermal_overload_pct)
+from ._profile import ScoringProfile, get_profile
+from ._restoration import CAUSES, restore
+from ._scorecard import FORMAT_NAME, FORMAT_VERSION, Scorecard
+
+__all__ = ["score", "RAW_FAMILIES", "RESTORED_FAMILIES", "FAMILY_TOLERANCE"]
+
+# Violation family -> profile tolerance key judging "violating" (thermal MVA is judged on % of rating).
+FAMILY_TOLERANCE = {
+    "raw_active_power_mw": "active_power_mw",
+    "raw_voltage_pu": "voltage_pu",
+    "raw_reactive_power_mvar": "reactive_power_mvar",
+    "raw_balance_mw": "balance_mw",
+    "raw_balance_mvar": "balance_mvar",
+    "raw_thermal_mva": "thermal_pct_of_rating",
+    "raw_thermal_pct": "thermal_pct_of_rating",
+    "raw_angle_deg": "angle_deg",
+    "restored_active_power_mw": "active_power_mw",
+    "restored_voltage_pu": "voltage_pu",
+    "restored_reactive_power_mvar": "reactive_power_mvar",
+    "restored_thermal_mva": "thermal_pct_of_rating",
+    "restored_thermal_pct": "thermal_pct_of_rating",
+    "restored_angle_deg": "angle_deg",
+}
+RAW_FAMILIES = tuple(k for k in FAMILY_TOLERANCE if k.startswith("raw_"))
+RESTORED_FAMILIES = tuple(k for k in FAMILY_TOLERANCE if k.startswith("restored_"))
+
+
+def _get(obj: Any, name: str) -> Any:
+    return obj[name] if isinstance(obj, dict) else getattr(obj, name)
+
+
+def _split_hash_of(preds) -> str:
+    split = preds.header.get("split") if isinstance(preds.header, dict) else None
+    h = split.get("split_hash") if isinstance(split, dict) else None
+    if not isinstance(h, str):
+        raise InputError("the header names no split hash", where="/header/split/split_hash")
+    return h
+
+
+def _resolve(predictions, split):
+    from ..splits import find_split, load_split
+    from ..submission import check_predictions, load_predictions
+
+    preds = load_predictions(predictions) if isinstance(predictions, (str, os.PathLike)) else predictions
+    if split is None:
+        split = load_split(find_split(_split_hash_of(preds)))
+    elif isinstance(split, (str, os.PathLike)):
+        split = load_split(Path(split))
+    check_predictions(preds, split)
+    return preds, split
+
+
+def _optional(a) -> np.ndarray | None:
+    return None if a is None else np.asarray(a, float)
+
+
+def _raw_metrics(net: Network, pd_mw, qd_mvar, pg, vm, va, qg) -> dict[str, np.ndarray]:
+    n = pg.shape[0]
+    nan = np.full(n, np.nan)
+    fam = {
+        "raw_active_power_mw": bound_violation(pg, net.pmin_mw, net.pmax_mw, input_name="pg_mw"),
+        "raw_voltage_pu": bound_violation(vm, net.vmin_pu, net.vmax_pu, input_name="vm_pu"),
+        "raw_reactive_power_mvar": nan if qg is None else bound_violation(qg, net.qmin_mvar, net.qmax_mvar,
+                                                                          input_name="qg_mvar"),
+    }
+    full = va is not None and qg is not None
+    if full:
+        mis = balance_residuals(net, pd_mw=pd_mw, qd_mvar=qd_mvar, pg_mw=pg, qg_mvar=qg, vm_pu=vm, va_deg=va)
+        sf, st = branch_flows_mva(net, vm_pu=vm, va_deg=va)
+        fam["raw_balance_mw"] = np.abs(mis.real).max(axis=1)
+        fam["raw_balance_mvar"] = np.abs(mis.imag).max(axis=1)
+        fam["raw_thermal_mva"] = thermal_overload_mva(sf, st, rate_mva=net.rate_mva, in_service=net.in_service)
+        fam["raw_thermal_pct"] = thermal_overload_pct(sf, st, rate_mva=net.rate_mva, in_service=net.in_service)
+        fam["raw_angle_deg"] = angle_difference_violation_deg(
+            va, f_idx=net.f_idx, t_idx=net.t_idx, angmin_deg=net.angmin_deg, angmax_deg=net.angmax_deg,
+            in_service=net.in_service)
+    else:
+        for k in ("raw_balance_mw", "raw_balance_mvar", "raw_thermal_mva", "raw_thermal_pct", "raw_angle_deg"):
+            fam[k] = nan
+    return fam
+
+
+def _violating(fams: dict[str, np.ndarray], tol: dict[str, float]) -> dict[str, np.ndarray]:
+    out = {}
+    for k, v in fams.items():
+        judge = fams[k.replace("_mva", "_pct")] if k.endswith("_thermal_mva") else v
+        out[k] = np.nan_to_num(judge, nan=0.0) > tol[FAMILY_TOLERANCE[k]]
+    return out
+
+
+def _reference_ms(split) -> float | None:
+    rs = (split.manifest or {}).get("reference_solve_seconds") if isinstance(split.manifest, dict) else None
+    med = rs.get("median") if isinstance(rs, dict) else None
+    return None if med is None or not np.isfinite(med) else 1000.0 * float(med)
+
+
+def _inference(ms: np.ndarray | None) -> dict[str, float] | None:
+    if ms is None:
+        return None
+    v = ms[np.isfinite(ms)]
+    if v.size == 0:
+        return None
+    return {"mean": float(v.mean()), "p95": float(np.percentile(v, 95))}
+
+
+def _aggregates(table: pd.DataFrame, fams: dict, viol: dict, restoration, ref_ms, profile) -> dict:
+    n = len(table)
+    inf = _inference(table["inference_ms"].to_numpy())
+    speed = None if inf is None or ref_ms is None or inf["mean"] <= 0 else ref_ms / inf["mean"]
+    boot = profile.bootstrap
+    ci = bootstrap_ci({"restoration_failure_rate": restoration.failed.astype(float),
+                       "restored_gap_pct_mean": table["restored_gap_pct"].to_numpy()},
+                      resamples=int(boot["resamples"]), seed=int(boot["seed"]), level=float(boot["level"]))
+    return {
+        "samples": n,
+        "restoration_failure_rate": float(restoration.failed.mean()) if n else None,
+        "restoration_failure_causes": {c: float(restoration.causes[c].mean()) for c in CAUSES},
+        "raw_gap_pct": summary_stats(table["raw_gap_pct"].to_numpy()),
+        "restored_gap_pct": summary_stats(table["restored_gap_pct"].to_numpy()),
+        "violations": {k: violation_stats(fams[k], viol[k]) for k in FAMILY_TOLERANCE},
+        "inference_ms": inf,
+        "reference_solve_ms_median": ref_ms,
+        "speedup_indicative": speed,
+        "ci95": ci,
+    }
+
+
+def _header(split, preds, profile: ScoringProfile) -> dict[str, Any]:
+    model = preds.header.get("model") if isinstance(preds.header, dict) else None
+    return {
+        "format": FORMAT_NAME,
+        "format_version": FORMAT_VERSION,
+        "flowgauge_version": __version__,
+        "split": {"network": split.network.name, "split": split.name, "split_hash": split.split_hash},
+        "predictions_hash": preds.content_hash,
+        "profile": profile.to_dict(),
+        "model": model if isinstance(model, dict) else {},
+    }
+
+
+def score(predictions, split=None, *, profile: str | ScoringProfile | None = None, workers: int = 1,
+          scheduler: str | None = None, progress: Callable[[int, int], None] | None = None) -> Scorecard:
+    """Score a predictions file (a path or a loaded ``Predictions``) against its split.
+
+    ``split``: a loaded ``Split``, a split folder, or None to find the split from the split hash
+    in the predictions header. ``profile``: a scoring profile or its name (``default``).
+    ``workers``: local processes for the restoration power flows; ``scheduler``: the address of
+    a Dask scheduler to spread them over instead. ``progress(done, total)`` is called as the
+    restoration power flows finish. The scorecard is the same bytes whatever ``workers`` and
+    ``scheduler``.
+    """
+    if isinstance(workers, bool) or not isinstance(workers, (int, np.integer)) or workers < 1:
+        raise InputError(f"The 'workers' parameter of score must be an integer >= 1. Got {workers!r} instead.",
+                         where="workers")
+    prof = get_profile(profile)
+    preds, split = _resolve(predictions, split)
+    net: Network = split.network
+    if not net.has_costs:
+        raise InputError("the network has no generator costs, so the optimality gap is undefined",
+                         where=f"network {net.name}")
+    sid = np.asarray(split.sample_id)
+    order = np.argsort(sid, kind="stable")
+    sid = sid[order]
+    pos = {v: i for i, v in enumerate(np.asarray(preds.sample_id).tolist())}
+    take = np.fromiter((pos[v] for v in sid.tolist()), dtype=np.int64, count=sid.size)
+
+    def pick(a):
+        return None if a is None else np.asarray(a, float)[take]
+
+    pd_mw = np.asarray(split.pd_mw, float)[order]
+    qd_mvar = np.asarray(split.qd_mvar, float)[order]
+    ref_cost = np.asarray(_get(split.references, "objective"), float)[order]
+    pg, vm = pick(preds.pg_mw), pick(preds.vm_pu)
+    va, qg = pick(_optional(preds.va_deg)), pick(_optional(preds.qg_mvar))
+    inference = pick(_optional(preds.inference_ms))
+
+    raw_cost = generator_cost_per_h(pg, cost_c2=net.cost_c2, cost_c1=net.cost_c1, cost_c0=net.cost_c0)
+    fams = _raw_metrics(net, pd_mw, qd_mvar, pg, vm, va, qg)
+    rest = restore(net, pd_mw=pd_mw, qd_mvar=qd_mvar, pg_mw=pg, vm_pu=vm, profile=prof, workers=int(workers),
+                   scheduler=scheduler, progress=progress)
+    fams.update(rest.violations)
+    viol = _violating(fams, dict(prof.tolerances))
+    restored_gap = np.full(sid.size, np.nan)
+    conv = rest.converged
+    if conv.any():
+        restored_gap[conv] = optimality_gap_pct(rest.cost_per_h[conv], ref_cost[conv])
+    table = pd.DataFrame({
+        "sample_id": sid,
+        "reference_cost_per_h": ref_cost,
+        "raw_cost_per_h": raw_cost,
+        "raw_gap_pct": optimality_gap_pct(raw_cost, ref_cost),
+        **{k: fams[k] for k in RAW_FAMILIES},
+        "restoration_converged": conv,
+        "restoration_iterations": rest.iterations,
+        "restoration_failed": rest.failed,
+        **{f"cause_{c}": rest.causes[c] for c in CAUSES},
+        "restored_cost_per_h": rest.cost_per_h,
+        "restored_gap_pct": restored_gap,
+        **{k: fams[k] for k in RESTORED_FAMILIES},
+        "inference_ms": inference if inference is not None else np.full(sid.size, np.nan),
+    })
+    aggregates = _aggregates(table, fams, viol, rest, _reference_ms(split), prof)
+    return Scorecard(header=_header(split, preds, prof), aggregates=aggregates, per_sample=table)

@@ -1,0 +1,112 @@
+"""The scorecard: canonical JSON with its own content hash, and a per-sample table."""
+
+from __future__ import annotations
+
+import io
+import json
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from .._io import atomic_write_bytes, canonical_json, sha256_hex
+from ..errors import InputError, IntegrityError
+
+__all__ = ["FORMAT_NAME", "FORMAT_VERSION", "PER_SAMPLE_JSON_FIELDS", "Scorecard", "read_scorecard",
+           "scorecard_hash"]
+
+FORMAT_NAME = "flowgauge-scorecard"
+FORMAT_VERSION = 1
+# Per-sample columns carried in the JSON scorecard (the ranking's paired bootstrap uses them);
+# the full per-sample table goes to Parquet with ``--per-sample``.
+PER_SAMPLE_JSON_FIELDS = ("sample_id", "restoration_failed", "restored_gap_pct", "raw_gap_pct")
+
+
+def scorecard_hash(doc: dict[str, Any]) -> str:
+    """SHA-256 of the canonical JSON of ``doc`` without its ``scorecard_hash`` field."""
+    return sha256_hex(canonical_json({k: v for k, v in doc.items() if k != "scorecard_hash"}))
+
+
+def _json_column(values: pd.Series) -> list:
+    a = values.to_numpy()
+    if a.dtype.kind == "b":
+        return a.astype(int).tolist()
+    if a.dtype.kind == "f":
+        return [None if not np.isfinite(x) else float(x) for x in a.tolist()]
+    return a.tolist()
+
+
+@dataclass(frozen=True, eq=False)
+class Scorecard:
+    """A scored predictions file.
+
+    ``header``: the scorecard's fixed fields (format, versions, split, predictions hash,
+    profile, model); ``aggregates``: the split-level numbers (see docs/metrics.md);
+    ``per_sample``: one row per sample, sorted by ``sample_id``.
+    """
+
+    header: dict[str, Any]
+    aggregates: dict[str, Any]
+    per_sample: pd.DataFrame = field(repr=False)
+
+    def to_dict(self) -> dict[str, Any]:
+        """The scorecard document, with its ``scorecard_hash``."""
+        doc = {**self.header, "aggregates": self.aggregates,
+               "per_sample": {k: _json_column(self.per_sample[k]) for k in PER_SAMPLE_JSON_FIELDS}}
+        # Round-trip through canonical JSON so the hash covers exactly what is written.
+        doc = json.loads(canonical_json(doc))
+        doc["scorecard_hash"] = scorecard_hash(doc)
+        return doc
+
+    def to_bytes(self) -> bytes:
+        return canonical_json(self.to_dict())
+
+    @property
+    def scorecard_hash(self) -> str:
+        return self.to_dict()["scorecard_hash"]
+
+    def write(self, path: str | Path) -> Path:
+        """Write the canonical JSON scorecard atomically; returns the path."""
+        path = Path(path)
+        atomic_write_bytes(path, self.to_bytes())
+        return path
+
+    def write_per_sample(self, path: str | Path) -> Path:
+        """Write the per-sample table as Parquet, atomically."""
+        buf = io.BytesIO()
+        self.per_sample.to_parquet(buf, index=False)
+        path = Path(path)
+        atomic_write_bytes(path, buf.getvalue())
+        return path
+
+
+def read_scorecard(path: str | Path) -> dict[str, Any]:
+    """Read a scorecard and verify its ``scorecard_hash``.
+
+    Raises InputError when the file is missing, not JSON or not a scorecard, and
+    IntegrityError when the content does not match the recorded hash.
+    """
+    path = Path(path)
+    try:
+        raw = path.read_bytes()
+    except OSError as exc:
+        raise InputError(f"cannot read the scorecard ({exc.strerror or exc})", where=str(path)) from exc
+    try:
+        doc = json.loads(raw)
+    except (json.JSONDecodeError, UnicodeDecodeError) as exc:
+        raise InputError(f"not JSON ({exc}); expected a flowgauge scorecard", where=str(path)) from exc
+    if not isinstance(doc, dict) or doc.get("format") != FORMAT_NAME:
+        raise InputError(f"not a scorecard: expected \"format\": \"{FORMAT_NAME}\"", where=f"{path}#/format")
+    if doc.get("format_version") != FORMAT_VERSION:
+        raise InputError(f"unknown scorecard format_version {doc.get('format_version')!r}; this flowgauge "
+                         f"reads version {FORMAT_VERSION}", where=f"{path}#/format_version")
+    recorded = doc.get("scorecard_hash")
+    if not isinstance(recorded, str):
+        raise InputError("missing the scorecard_hash field", where=f"{path}#/scorecard_hash")
+    actual = scorecard_hash(doc)
+    if actual != recorded:
+        raise IntegrityError(f"content does not match its scorecard_hash (recorded {recorded[:12]}..., "
+                             f"content {actual[:12]}...); the file was changed after scoring", where=str(path))
+    return doc
