@@ -1,0 +1,97 @@
+"""The reference proxies every board starts with: ``dc-opf``, ``nearest`` and ``linear``.
+
+Each maps a split's loads (n_samples, n_load) to predictions shaped like the split's
+references; the learned ones are fitted on the ``train`` split of the same network.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+from scipy.spatial import cKDTree
+
+from ..errors import InputError
+from ..network import Network
+
+__all__ = ["Prediction", "dc_opf", "nearest", "linear", "RIDGE_ALPHA"]
+
+# Ridge penalty on standardised loads: small enough to follow the data, large enough to keep the
+# normal equations well conditioned when loads move together (common practice).
+RIDGE_ALPHA = 1.0
+
+
+@dataclass(frozen=True, eq=False)
+class Prediction:
+    """Arrays of one baseline's predictions: ``pg_mw`` (S, n_gen) [MW], ``vm_pu`` (S, n_bus)
+    [p.u.], ``va_deg`` (S, n_bus) [deg] or None, ``qg_mvar`` (S, n_gen) [MVAr] or None."""
+
+    pg_mw: np.ndarray
+    vm_pu: np.ndarray
+    va_deg: np.ndarray | None
+    qg_mvar: np.ndarray | None
+
+
+def network_voltage_setpoints(net: Network) -> np.ndarray:
+    """Voltage magnitude per bus, shape (n_bus,) [p.u.]: each generator bus at its (first)
+    generator's setpoint, every other bus at the network's stored voltage."""
+    vm = np.asarray(net.vm_pu, float).copy()
+    idx = net.gen_bus_idx
+    first = np.unique(idx, return_index=True)[1]
+    vm[idx[first]] = np.asarray(net.vg_pu, float)[first]
+    return vm
+
+
+def dc_opf(net: Network, pd_mw: np.ndarray, sample_id: np.ndarray) -> Prediction:
+    """The DC-OPF dispatch of each sample, with the network's voltage setpoints."""
+    from ..opf import solve_dcopf
+
+    pd = np.asarray(pd_mw, float)
+    pg = np.empty((pd.shape[0], net.n_gen))
+    for i in range(pd.shape[0]):  # one linear programme per sample
+        res = solve_dcopf(net, pd_mw=pd[i])
+        out = np.asarray(res.pg_mw, float)
+        if str(res.status) != "converged" or not np.all(np.isfinite(out)):
+            raise InputError(f"the DC-OPF has no solution for this sample (status {res.status})",
+                             where=f"sample_id {int(sample_id[i])}")
+        pg[i] = out
+    vm = np.broadcast_to(network_voltage_setpoints(net), (pd.shape[0], net.n_bus)).copy()
+    return Prediction(pg_mw=pg, vm_pu=vm, va_deg=None, qg_mvar=None)
+
+
+def _features(pd_mw, qd_mvar) -> np.ndarray:
+    return np.hstack([np.asarray(pd_mw, float), np.asarray(qd_mvar, float)])
+
+
+def _targets(refs) -> tuple[np.ndarray, list[int]]:
+    parts = [np.asarray(refs.pg_mw, float), np.asarray(refs.vm_pu, float), np.asarray(refs.va_deg, float),
+             np.asarray(refs.qg_mvar, float)]
+    return np.hstack(parts), np.cumsum([p.shape[1] for p in parts])[:-1].tolist()
+
+
+def _unpack(y: np.ndarray, cuts: list[int]) -> Prediction:
+    pg, vm, va, qg = np.split(y, cuts, axis=1)
+    return Prediction(pg_mw=pg, vm_pu=vm, va_deg=va, qg_mvar=qg)
+
+
+def nearest(train, pd_mw, qd_mvar) -> Prediction:
+    """The reference solution of the training sample whose loads (MW and MVAr, Euclidean
+    distance) are nearest to each sample's; ties go to the lowest sample position."""
+    y, cuts = _targets(train.references)
+    tree = cKDTree(_features(train.pd_mw, train.qd_mvar))
+    _, idx = tree.query(_features(pd_mw, qd_mvar), k=1)
+    return _unpack(y[np.asarray(idx)], cuts)
+
+
+def linear(train, pd_mw, qd_mvar, *, alpha: float = RIDGE_ALPHA) -> Prediction:
+    """Ridge regression from the standardised loads to ``pg_mw``, ``vm_pu``, ``va_deg`` and
+    ``qg_mvar``, fitted on the training split (closed form, intercept not penalised)."""
+    x = _features(train.pd_mw, train.qd_mvar)
+    y, cuts = _targets(train.references)
+    mu, sd = x.mean(axis=0), x.std(axis=0)
+    sd = np.where(sd > 0, sd, 1.0)
+    z = (x - mu) / sd
+    ymu = y.mean(axis=0)
+    w = np.linalg.solve(z.T @ z + alpha * np.eye(z.shape[1]), z.T @ (y - ymu))
+    zq = (_features(pd_mw, qd_mvar) - mu) / sd
+    return _unpack(zq @ w + ymu, cuts)
