@@ -1,0 +1,129 @@
+"""``flowgauge splits``: build, verify, show and publish frozen splits."""
+
+from __future__ import annotations
+
+import math
+import time
+
+import click
+from rich.table import Table
+
+from ..errors import InputError
+from ._common import console, err_console
+
+SPLIT_CHOICES = ["train", "test-id", "test-ood", "test-edge"]
+
+
+@click.group()
+def splits() -> None:
+    """Build, verify, show and publish frozen splits."""
+
+
+class _Progress:
+    """rich progress: samples solved and rejected, rate, time left."""
+
+    def __init__(self, quiet: bool):
+        from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeRemainingColumn
+        self.quiet = quiet
+        self.bar = Progress(TextColumn("[bold]{task.description}"), BarColumn(), MofNCompleteColumn(),
+                            TextColumn("rejected {task.fields[rejected]}"), TextColumn("{task.fields[rate]}"),
+                            TimeRemainingColumn(), console=err_console, disable=quiet)
+        self.task = None
+        self.t0 = time.perf_counter()
+
+    def __call__(self, p) -> None:
+        if self.task is None:
+            self.bar.start()
+            self.task = self.bar.add_task("solved", total=p.total, rejected=p.rejected, rate="")
+            self.t0 = time.perf_counter()
+        dt = time.perf_counter() - self.t0
+        new = p.solved - p.resumed
+        rate = f"{new / dt:.2f} samples/s" if dt > 0 and new > 0 else ""
+        self.bar.update(self.task, completed=p.solved, rejected=p.rejected, rate=rate)
+
+    def stop(self) -> None:
+        if self.task is not None:
+            self.bar.stop()
+
+
+@splits.command()
+@click.argument("network")
+@click.option("--split", "split", required=True, type=click.Choice(SPLIT_CHOICES), help="Which split design to draw.")
+@click.option("--samples", type=click.IntRange(min=1), required=True, help="Number of samples kept.")
+@click.option("--seed", type=click.IntRange(min=0), required=True, help="Seed of every draw.")
+@click.option("--out", "out", type=click.Path(file_okay=False), required=True, help="Folder to create.")
+@click.option("--workers", type=click.IntRange(min=1), default=1, show_default=True, help="Local worker processes.")
+@click.option("--scheduler", default=None, help="Dask scheduler address (tcp://HOST:PORT) instead of local workers.")
+@click.option("--chunk", type=click.IntRange(min=1), default=10, show_default=True, help="Samples per chunk.")
+@click.option("--notes", default="", help="Text recorded in the manifest's notes.")
+@click.option("--quiet", is_flag=True, help="No progress bar.")
+def build(network, split, samples, seed, out, workers, scheduler, chunk, notes, quiet) -> None:
+    """Build a split of NETWORK (bundled name or file) into the folder --out (resumable)."""
+    from ..splits import build_split
+    progress = _Progress(quiet)
+    try:
+        m = build_split(network, split, samples=samples, seed=seed, out=out, workers=workers,
+                        scheduler=scheduler, chunk=chunk, notes=notes, progress=progress)
+    finally:
+        progress.stop()
+    rej = sum(m["rejected"].values())
+    console.print(f"{out}: {m['samples']} samples, {rej} draws rejected, split_hash {m['split_hash']}")
+
+
+@splits.command()
+@click.argument("paths", nargs=-1, type=click.Path())
+def verify(paths) -> None:
+    """Recompute every hash of the splits at PATHS (default: every frozen split); exit 3 on a difference."""
+    from ..splits import list_splits, resolve_split, splits_root, verify_split
+    folders = [resolve_split(p) for p in paths] if paths else list_splits()
+    if not folders:
+        raise InputError("no frozen splits found", where=str(splits_root()))
+    for folder in folders:
+        r = verify_split(folder)
+        extra = "" if r.references_present else " (references withheld; manifest commits to their hash)"
+        console.print(f"ok  {r.network}/{r.split}  {r.samples} samples  {r.split_hash[:16]}  {folder}{extra}")
+
+
+def _fmt(x: float, pct: bool = False) -> str:
+    if x is None or (isinstance(x, float) and math.isnan(x)):
+        return "-"
+    return f"{100 * x:.0f}%" if pct else f"{x:.3g}"
+
+
+@splits.command()
+@click.argument("network")
+def show(network) -> None:
+    """Statistics of the frozen splits of NETWORK: load range, regimes, binding limits, rejections, solve times."""
+    from ..splits import SPLIT_NAMES, splits_root, summarize_split
+    folder = splits_root() / network
+    names = [s for s in SPLIT_NAMES if (folder / s / "manifest.json").exists()]
+    if not names:
+        raise InputError("no frozen splits for this network", where=str(folder))
+    t = Table(title=f"Frozen splits of {network}")
+    for col in ("split", "samples", "load % of base\nmin/med/max", "binding\nsets",
+                "thermal\nbinding", "voltage\nbinding", "rejected draws", "solve s\nmed/p90/max"):
+        t.add_column(col)
+    notes = []
+    for name in names:
+        s = summarize_split(folder / name)
+        lo, med, hi = s.load_pct_of_base
+        rej = ", ".join(f"{k} {v}" for k, v in sorted(s.rejected.items())) or "none"
+        sec = s.solve_seconds
+        t.add_row(name, str(s.samples), f"{lo:.0f}/{med:.0f}/{hi:.0f}", str(s.distinct_signatures),
+                  _fmt(s.share_thermal, True), _fmt(s.share_voltage, True), rej,
+                  f"{_fmt(sec['median'])}/{_fmt(sec['p90'])}/{_fmt(sec['max'])}")
+        if s.notes:
+            notes.append(f"{name}: {s.notes}")
+    console.print(t)
+    for line in notes:
+        console.print(line)
+
+
+@splits.command()
+@click.argument("split")
+@click.option("--out", "out", type=click.Path(file_okay=False), required=True, help="Folder to create.")
+def publish(split, out) -> None:
+    """Write SPLIT's inputs and manifest (no references) to --out; the manifest commits to the references' hash."""
+    from ..splits import publish_split
+    path = publish_split(split, out)
+    console.print(f"published {split} to {path} (inputs and manifest; references withheld)")

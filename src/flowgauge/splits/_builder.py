@@ -1,0 +1,183 @@
+"""Building a split: draw loadings, solve their AC-OPF references in chunks (resumable), then
+write the Parquet files and the manifest, and move the finished folder into place at once."""
+
+from __future__ import annotations
+
+import json
+import os
+import shutil
+from collections import Counter
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any, Callable
+
+import numpy as np
+
+from .. import __version__
+from .._io import atomic_write_bytes, canonical_json, sha256_hex
+from ..errors import InputError
+from ..network import Network, bundled_names, load_network, write_network_json
+from ._designs import design_for
+from ._executors import run_tasks
+from ._manifest import FORMAT_NAME, FORMAT_VERSION, SPLIT_NAMES, network_hash, seal_manifest, write_manifest
+from ._store import (BINDING_SEP, INPUTS_FILE, MANIFEST_FILE, REFERENCES_FILE, inputs_table,
+                     references_table, columns_hash, solution_hash, table_columns, write_table)
+from ._worker import ACCEPTANCE, MAX_ATTEMPTS, Job, read_chunk, solve_chunk, solver_settings, write_chunk
+from .._io import hash_arrays
+
+__all__ = ["BuildProgress", "build_split", "partial_dir", "DEFAULT_CHUNK"]
+
+DEFAULT_CHUNK = 10
+
+
+@dataclass(frozen=True)
+class BuildProgress:
+    """Passed to the progress callback after each finished chunk."""
+
+    solved: int
+    rejected: int
+    total: int
+    resumed: int  # samples taken from chunks of an earlier, interrupted run
+
+
+def partial_dir(out: Path) -> Path:
+    """Where an unfinished build keeps its chunks: a hidden sibling of the output folder."""
+    return out.parent / f".{out.name}.partial"
+
+
+def _chunk_ranges(samples: int, chunk: int) -> list[tuple[int, int]]:
+    return [(s, min(s + chunk, samples)) for s in range(0, samples, chunk)]
+
+
+def _fingerprint(job: Job, settings: dict, chunk: int) -> dict[str, Any]:
+    return {"network_hash": job.net_hash, "design": job.design.name,
+            "parameters": job.design.parameters(job.net), "seed": job.seed, "solver": settings,
+            "acceptance": dict(job.acceptance), "max_attempts": job.max_attempts, "chunk": chunk,
+            "flowgauge_version": __version__}
+
+
+def _prepare_partial(part: Path, fingerprint: dict) -> Path:
+    """The chunk folder, emptied if it belongs to a build with other settings."""
+    chunks = part / "chunks"
+    stamp = part / "build.json"
+    want = canonical_json(fingerprint, indent=1)
+    if stamp.exists() and stamp.read_bytes() != want:
+        shutil.rmtree(part)
+    chunks.mkdir(parents=True, exist_ok=True)
+    if not stamp.exists():
+        atomic_write_bytes(stamp, want)
+    return chunks
+
+
+def _chunk_path(chunks: Path, start: int, stop: int) -> Path:
+    return chunks / f"samples-{start:07d}-{stop:07d}.npz"
+
+
+def _check_out(out: Path) -> None:
+    if (out / MANIFEST_FILE).exists():
+        raise InputError("already holds a finished split; remove it or choose another --out", where=str(out))
+    if out.exists() and (not out.is_dir() or any(out.iterdir())):
+        raise InputError("exists and is not an empty folder; choose another --out", where=str(out))
+
+
+def _seconds_stats(sec: np.ndarray) -> dict[str, float]:
+    return {"median": float(np.median(sec)), "mean": float(np.mean(sec)),
+            "p90": float(np.percentile(sec, 90)), "max": float(np.max(sec)), "total": float(np.sum(sec))}
+
+
+def _assemble(chunks: list[dict]) -> tuple[dict[str, np.ndarray], Counter]:
+    rejected: Counter = Counter()
+    for c in chunks:
+        rejected.update(json.loads(str(c["rejected"])))
+    keys = [k for k in chunks[0] if k != "rejected"]
+    return {k: np.concatenate([c[k] for c in chunks]) for k in keys}, rejected
+
+
+def _file_entry(path: str, table, with_solution: bool) -> dict[str, Any]:
+    cols = table_columns(table)
+    entry = {"path": path, "hash": hash_arrays(cols),
+             "columns": {name: hash_arrays({name: arr}) for name, arr in cols.items()}}
+    if with_solution:
+        entry["solution_hash"] = solution_hash(table)
+    return entry
+
+
+def _finish(out: Path, part: Path, net: Network, job: Job, split: str, samples: int,
+            data: dict, rejected: Counter, settings: dict, notes: str) -> dict[str, Any]:
+    stage = part / "final"
+    if stage.exists():
+        shutil.rmtree(stage)
+    stage.mkdir(parents=True)
+    sid = data["slot"]
+    if not np.array_equal(sid, np.arange(samples)):
+        raise RuntimeError("chunks do not cover the samples exactly")  # a bug, not a user error
+    t_in = inputs_table(sid, data["pd_mw"], data["qd_mvar"])
+    ref_cols = dict(data)
+    ref_cols["binding"] = [tuple(b.split(BINDING_SEP)) if b else () for b in data["binding"].tolist()]
+    t_ref = references_table(sid, ref_cols)
+    write_table(t_in, stage / INPUTS_FILE)
+    write_table(t_ref, stage / REFERENCES_FILE)
+    network_info = {"name": net.name, "content_hash": job.net_hash}
+    if net.name not in bundled_names() or network_hash(load_network(net.name)) != job.net_hash:
+        write_network_json(net, stage / "network.json")
+        network_info["file"] = "network.json"
+    manifest = seal_manifest({
+        "format": FORMAT_NAME, "format_version": FORMAT_VERSION, "network": network_info,
+        "split": split, "design": {"name": job.design.name, "parameters": job.design.parameters(net)},
+        "seed": job.seed, "samples": samples,
+        "elements": {"bus_id": net.bus_id.tolist(), "gen_id": net.gen_id.tolist(),
+                     "load_id": net.load_id.tolist(), "branch_id": net.branch_id.tolist()},
+        "flowgauge_version": __version__, "solver": settings, "acceptance": dict(job.acceptance),
+        "files": {"inputs": _file_entry(INPUTS_FILE, t_in, False),
+                  "references": _file_entry(REFERENCES_FILE, t_ref, True)},
+        "rejected": dict(sorted(rejected.items())), "draws": samples + int(sum(rejected.values())),
+        "reference_solve_seconds": _seconds_stats(data["solve_seconds"]), "notes": notes,
+    })
+    write_manifest(stage / MANIFEST_FILE, manifest)
+    if out.exists():
+        out.rmdir()  # checked empty before the build
+    out.parent.mkdir(parents=True, exist_ok=True)
+    os.replace(stage, out)
+    shutil.rmtree(part)
+    return manifest
+
+
+def build_split(network: str | Path | Network, split: str, *, samples: int, seed: int, out: str | Path,
+                workers: int = 1, scheduler: str | None = None, chunk: int = DEFAULT_CHUNK,
+                notes: str = "", progress: Callable[[BuildProgress], None] | None = None,
+                max_attempts: int = MAX_ATTEMPTS) -> dict[str, Any]:
+    """Build one split into the folder ``out`` and return its manifest.
+
+    Finished chunks are kept in a hidden sibling folder of ``out``; a rerun with the same
+    settings resumes from them. ``out`` appears only when everything is written.
+    """
+    if split not in SPLIT_NAMES:
+        raise InputError(f"expected one of {', '.join(SPLIT_NAMES)}, got {split!r}", where="split")
+    for name, value, low in (("samples", samples, 1), ("workers", workers, 1), ("chunk", chunk, 1), ("seed", seed, 0)):
+        if isinstance(value, bool) or not isinstance(value, int) or value < low:
+            raise InputError(f"expected an integer >= {low}, got {value!r}", where=name)
+    net = network if isinstance(network, Network) else load_network(network)
+    out = Path(out)
+    _check_out(out)
+    job = Job(net=net, net_hash=network_hash(net), design=design_for(split), seed=seed,
+              acceptance=tuple(sorted(ACCEPTANCE.items())), max_attempts=max_attempts)
+    settings = solver_settings()
+    part = partial_dir(out)
+    chunks_dir = _prepare_partial(part, _fingerprint(job, settings, chunk))
+    ranges = _chunk_ranges(samples, chunk)
+    done = {r: read_chunk(_chunk_path(chunks_dir, *r)) for r in ranges if _chunk_path(chunks_dir, *r).exists()}
+    solved = sum(r[1] - r[0] for r in done)
+    n_rej = sum(sum(json.loads(str(c["rejected"])).values()) for c in done.values())
+    resumed = solved
+    if progress:
+        progress(BuildProgress(solved, n_rej, samples, resumed))
+    todo = [(job, a, b) for (a, b) in ranges if (a, b) not in done]
+    for (_, a, b), result in run_tasks(solve_chunk, todo, workers=workers, scheduler=scheduler):
+        write_chunk(_chunk_path(chunks_dir, a, b), result)
+        done[(a, b)] = result
+        solved += b - a
+        n_rej += sum(json.loads(str(result["rejected"])).values())
+        if progress:
+            progress(BuildProgress(solved, n_rej, samples, resumed))
+    data, rejected = _assemble([done[r] for r in ranges])
+    return _finish(out, part, net, job, split, samples, data, rejected, settings, notes)

@@ -1,0 +1,146 @@
+"""Sampling designs: how each split draws its loadings. docs/splits.md gives the reasons.
+
+A design draws one loading from a random generator. The edge-of-feasibility design also needs
+the maximum loadability along its random direction, which it asks of the solver it is given.
+A draw returns :class:`Loading` or a rejection reason (str); rejected draws are counted.
+"""
+
+from __future__ import annotations
+
+from dataclasses import asdict, dataclass, field
+from typing import Any, Callable
+
+import numpy as np
+
+from ..errors import InputError
+from ..network import Network
+from ._graph import two_regions
+
+__all__ = ["Loading", "LevelLocal", "Shifted", "Edge", "DESIGNS", "SPLIT_DESIGN", "design_for",
+           "sample_rng"]
+
+
+@dataclass(frozen=True)
+class Loading:
+    """One drawn loading: ``pd_mw``, ``qd_mvar`` shape (n_load,) [MW], [MVAr]; ``margin``
+    (fraction of the maximum loadability left, NaN outside the edge design)."""
+
+    pd_mw: np.ndarray
+    qd_mvar: np.ndarray
+    margin: float = float("nan")
+
+
+def sample_rng(seed: int, slot: int, attempt: int) -> np.random.Generator:
+    """The generator of one draw: depends only on (seed, sample slot, attempt), so chunking and
+    worker count never change a split."""
+    return np.random.Generator(np.random.PCG64(np.random.SeedSequence(seed, spawn_key=(slot, attempt))))
+
+
+def _uniform(rng: np.random.Generator, lo_hi: tuple[float, float], size=None):
+    return rng.uniform(lo_hi[0], lo_hi[1], size=size)
+
+
+@dataclass(frozen=True)
+class LevelLocal:
+    """Each load's power = base x system-wide level x local factor; power factor kept."""
+
+    name: str = "level-local"
+    level: tuple[float, float] = (0.85, 1.15)
+    local_factor: tuple[float, float] = (0.95, 1.05)
+
+    def parameters(self, net: Network) -> dict[str, Any]:
+        return {"level": list(self.level), "local_factor": list(self.local_factor)}
+
+    def draw(self, net: Network, rng: np.random.Generator, solver=None) -> Loading | str:
+        scale = _uniform(rng, self.level) * _uniform(rng, self.local_factor, net.n_load)
+        return Loading(net.pd_mw * scale, net.qd_mvar * scale)
+
+
+_OOD_KINDS = ("level-low", "level-high", "regional", "power-factor")
+
+
+@dataclass(frozen=True)
+class Shifted:
+    """Loadings the level-local design cannot produce. Each draw picks one kind, equally likely:
+
+    - ``level-low`` / ``level-high``: system-wide level below / above the training range;
+    - ``regional``: one graph region heavy, the other light (which one is random);
+    - ``power-factor``: a training-range level, but every load's power-factor angle shifted by
+      one system-wide angle of random sign.
+    Local factors as in training.
+    """
+
+    name: str = "shifted"
+    level_low: tuple[float, float] = (0.60, 0.85)
+    level_high: tuple[float, float] = (1.15, 1.35)
+    heavy: tuple[float, float] = (1.15, 1.35)
+    light: tuple[float, float] = (0.60, 0.85)
+    train_level: tuple[float, float] = (0.85, 1.15)
+    angle_shift_rad: tuple[float, float] = (0.10, 0.30)
+    local_factor: tuple[float, float] = (0.95, 1.05)
+
+    def parameters(self, net: Network) -> dict[str, Any]:
+        p = {k: list(v) for k, v in asdict(self).items() if k != "name"}
+        p["kinds"] = list(_OOD_KINDS)
+        p["region_a_bus_id"] = net.bus_id[two_regions(net)].tolist()
+        return p
+
+    def draw(self, net: Network, rng: np.random.Generator, solver=None) -> Loading | str:
+        kind = _OOD_KINDS[int(rng.integers(len(_OOD_KINDS)))]
+        local = _uniform(rng, self.local_factor, net.n_load)
+        pd0, qd0 = net.pd_mw, net.qd_mvar
+        if kind in ("level-low", "level-high"):
+            scale = _uniform(rng, self.level_low if kind == "level-low" else self.level_high) * local
+            return Loading(pd0 * scale, qd0 * scale)
+        if kind == "regional":
+            in_a = two_regions(net)[net.load_bus_idx]
+            heavy, light = _uniform(rng, self.heavy), _uniform(rng, self.light)
+            a_heavy = bool(rng.integers(2))
+            scale = np.where(in_a == a_heavy, heavy, light) * local
+            return Loading(pd0 * scale, qd0 * scale)
+        level = _uniform(rng, self.train_level)
+        shift = _uniform(rng, self.angle_shift_rad) * (1.0 if rng.integers(2) else -1.0)
+        pd = pd0 * level * local
+        angle = np.clip(np.arctan2(qd0, np.where(pd0 == 0, 1.0, pd0)) + shift, -1.4, 1.4)
+        qd = np.where(pd0 > 0, pd * np.tan(angle), qd0 * level * local)
+        return Loading(pd, qd)
+
+
+@dataclass(frozen=True)
+class Edge:
+    """Near the edge of feasibility: a random load-increase direction from the base loading, its
+    maximum loadability lambda, and the loading at (1 - m) x lambda along it with m drawn in
+    ``margin``. The direction weights each load's base power by a uniform draw (power factor
+    kept), scaled to the base total load."""
+
+    name: str = "edge"
+    margin: tuple[float, float] = (0.002, 0.03)
+    weight: tuple[float, float] = (0.0, 1.0)
+
+    def parameters(self, net: Network) -> dict[str, Any]:
+        return {"margin": list(self.margin), "direction_weight": list(self.weight),
+                "start": "base loading", "direction": "base load x uniform weight, scaled to the base total"}
+
+    def draw(self, net: Network, rng: np.random.Generator, solver=None) -> Loading | str:
+        w = _uniform(rng, self.weight, net.n_load)
+        total = float(np.sum(net.pd_mw))
+        d_pd = net.pd_mw * w
+        s = float(np.sum(d_pd))
+        d_pd = d_pd * (total / s) if s > 0 else d_pd
+        with np.errstate(divide="ignore", invalid="ignore"):
+            d_qd = np.where(net.pd_mw != 0, d_pd * net.qd_mvar / np.where(net.pd_mw == 0, 1.0, net.pd_mw), 0.0)
+        m = _uniform(rng, self.margin)
+        lam = solver.max_loadability(net.pd_mw, net.qd_mvar, d_pd, d_qd)
+        if isinstance(lam, str):
+            return lam
+        return Loading(net.pd_mw + (1.0 - m) * lam * d_pd, net.qd_mvar + (1.0 - m) * lam * d_qd, float(m))
+
+
+DESIGNS: dict[str, Callable[[], Any]] = {"level-local": LevelLocal, "shifted": Shifted, "edge": Edge}
+SPLIT_DESIGN = {"train": "level-local", "test-id": "level-local", "test-ood": "shifted", "test-edge": "edge"}
+
+
+def design_for(split: str):
+    if split not in SPLIT_DESIGN:
+        raise InputError(f"expected one of {', '.join(SPLIT_DESIGN)}, got {split!r}", where="split")
+    return DESIGNS[SPLIT_DESIGN[split]]()

@@ -1,0 +1,195 @@
+"""Parquet storage of split inputs and references, and their format-independent hashes.
+
+Per-element arrays are stored as ``fixed_size_list<float64>[n]`` columns, one row per sample.
+Hashes are :func:`flowgauge._io.hash_arrays` over the columns as numpy arrays (never over the
+Parquet bytes), so another pyarrow version or compression gives the same hash.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+import pyarrow as pa
+import pyarrow.parquet as pq
+
+from .._io import atomic_write_bytes, hash_arrays
+from ..errors import InputError
+
+__all__ = [
+    "INPUTS_FILE", "REFERENCES_FILE", "MANIFEST_FILE", "STORED_DIGITS",
+    "References", "round_array", "inputs_table", "references_table", "table_columns",
+    "columns_hash", "solution_hash", "write_table", "read_table", "inputs_from_table",
+    "references_from_table", "BINDING_SEP",
+]
+
+INPUTS_FILE = "inputs.parquet"
+REFERENCES_FILE = "references.parquet"
+MANIFEST_FILE = "manifest.json"
+# Floats are stored rounded to this many significant digits: far below solver tolerance, and it
+# makes the stored bytes independent of last-bit noise.
+STORED_DIGITS = 10
+# Separator joining a sample's binding-limit labels when hashing (labels never contain it).
+BINDING_SEP = "\x1e"
+# Columns left out of the solution hash: measurements of this machine, not results.
+TIMING_COLUMNS = ("solve_seconds",)
+
+_VECTOR_REF = ("pg_mw", "qg_mvar", "vm_pu", "va_deg")
+_SCALAR_REF_FLOAT = ("objective_per_h", "max_p_mismatch_mw", "max_q_mismatch_mvar",
+                     "max_limit_violation", "solve_seconds", "margin")
+
+
+@dataclass(frozen=True)
+class References:
+    """Reference AC-OPF solutions of a split, one row per sample.
+
+    ``pg_mw``, ``qg_mvar``: shape (S, n_gen) [MW], [MVAr]; ``vm_pu``: shape (S, n_bus) [p.u.];
+    ``va_deg``: shape (S, n_bus) [deg]; ``objective``: shape (S,) [$/h]; ``status``: shape (S,)
+    str; ``iterations``: (S,) int; ``max_p_mismatch_mw``, ``max_q_mismatch_mvar``,
+    ``max_limit_violation``, ``solve_seconds`` [s]: (S,); ``margin``: (S,) fraction of the maximum
+    loadability (NaN outside the edge split); ``binding``: tuple of S tuples of limit labels;
+    ``signature``: (S,) str.
+    """
+
+    pg_mw: np.ndarray
+    qg_mvar: np.ndarray
+    vm_pu: np.ndarray
+    va_deg: np.ndarray
+    objective: np.ndarray
+    status: np.ndarray
+    iterations: np.ndarray
+    max_p_mismatch_mw: np.ndarray
+    max_q_mismatch_mvar: np.ndarray
+    max_limit_violation: np.ndarray
+    solve_seconds: np.ndarray
+    margin: np.ndarray
+    binding: tuple
+    signature: np.ndarray
+
+    def __getitem__(self, key: str):
+        # dict-style access, e.g. refs["pg_mw"]
+        if key == "objective_per_h":
+            key = "objective"
+        return getattr(self, key)
+
+
+def round_array(a: np.ndarray, digits: int = STORED_DIGITS) -> np.ndarray:
+    """``a`` rounded to ``digits`` significant digits (NaN and 0 kept), same shape."""
+    a = np.asarray(a, dtype=np.float64)
+    out = a.copy()
+    ok = np.isfinite(a) & (a != 0.0)
+    if np.any(ok):
+        mag = np.floor(np.log10(np.abs(a[ok])))
+        scale = 10.0 ** (digits - 1 - mag)
+        out[ok] = np.round(a[ok] * scale) / scale
+    out[out == 0.0] = 0.0  # no negative zero
+    return out
+
+
+def _fixed(matrix: np.ndarray) -> pa.FixedSizeListArray:
+    m = np.ascontiguousarray(matrix, dtype=np.float64)
+    return pa.FixedSizeListArray.from_arrays(pa.array(m.ravel(), pa.float64()), m.shape[1])
+
+
+def inputs_table(sample_id: np.ndarray, pd_mw: np.ndarray, qd_mvar: np.ndarray) -> pa.Table:
+    """Inputs table: ``sample_id`` (S,), ``pd_mw``, ``qd_mvar`` (S, n_load) [MW], [MVAr]."""
+    return pa.table({
+        "sample_id": pa.array(np.asarray(sample_id, np.int64)),
+        "pd_mw": _fixed(round_array(pd_mw)),
+        "qd_mvar": _fixed(round_array(qd_mvar)),
+    })
+
+
+def references_table(sample_id: np.ndarray, cols: dict) -> pa.Table:
+    """References table from per-sample arrays (see :class:`References` for shapes)."""
+    data = {"sample_id": pa.array(np.asarray(sample_id, np.int64))}
+    for name in _VECTOR_REF:
+        data[name] = _fixed(round_array(cols[name]))
+    for name in _SCALAR_REF_FLOAT:
+        v = round_array(cols[name])
+        data[name] = pa.array(v, pa.float64(), mask=np.isnan(v)) if name == "margin" else pa.array(v)
+    data["status"] = pa.array([str(s) for s in cols["status"]], pa.string())
+    data["iterations"] = pa.array(np.asarray(cols["iterations"], np.int64))
+    data["binding"] = pa.array([list(b) for b in cols["binding"]], pa.list_(pa.string()))
+    data["signature"] = pa.array([str(s) for s in cols["signature"]], pa.string())
+    order = ["sample_id", *_VECTOR_REF, "objective_per_h", "status", "iterations", "max_p_mismatch_mw",
+             "max_q_mismatch_mvar", "max_limit_violation", "solve_seconds", "binding", "signature", "margin"]
+    return pa.table({k: data[k] for k in order})
+
+
+def _column_array(col: pa.ChunkedArray, name: str) -> np.ndarray:
+    col = col.combine_chunks() if isinstance(col, pa.ChunkedArray) else col
+    t = col.type
+    if pa.types.is_fixed_size_list(t):
+        flat = col.flatten().to_numpy(zero_copy_only=False)
+        return flat.astype(np.float64, copy=False).reshape(len(col), t.list_size)
+    if pa.types.is_list(t) or pa.types.is_large_list(t):
+        return np.array([BINDING_SEP.join(x) for x in col.to_pylist()], dtype=object)
+    if pa.types.is_string(t) or pa.types.is_large_string(t):
+        return np.array(col.to_pylist(), dtype=object)
+    if pa.types.is_floating(t):
+        return col.to_numpy(zero_copy_only=False).astype(np.float64, copy=False)
+    if pa.types.is_integer(t):
+        return col.to_numpy(zero_copy_only=False).astype(np.int64, copy=False)
+    raise InputError(f"unexpected column type {t}", where=f"column {name}")
+
+
+def table_columns(table: pa.Table) -> dict[str, np.ndarray]:
+    """The columns as numpy arrays, in the form that is hashed (nulls as NaN)."""
+    return {name: _column_array(table.column(name), name) for name in table.column_names}
+
+
+def columns_hash(table: pa.Table) -> str:
+    """Content hash of every column of the table."""
+    return hash_arrays(table_columns(table))
+
+
+def solution_hash(table: pa.Table) -> str:
+    """Content hash of a references table without the timing columns: reproducible by a rebuild."""
+    cols = table_columns(table)
+    return hash_arrays({k: v for k, v in cols.items() if k not in TIMING_COLUMNS})
+
+
+def write_table(table: pa.Table, path: Path) -> None:
+    """Write a Parquet file atomically (zstd compressed, no pandas metadata)."""
+    sink = pa.BufferOutputStream()
+    pq.write_table(table.replace_schema_metadata(None), sink, compression="zstd")
+    atomic_write_bytes(path, sink.getvalue().to_pybytes())
+
+
+def read_table(path: Path, columns: list[str] | None = None) -> pa.Table:
+    try:
+        return pq.read_table(path, columns=columns)
+    except FileNotFoundError:
+        raise InputError("no such file", where=str(path)) from None
+    except (pa.ArrowInvalid, OSError, KeyError) as exc:
+        raise InputError(f"not a readable Parquet file of this layout ({exc})", where=str(path)) from None
+
+
+def _require(table: pa.Table, names: tuple, path: Path) -> None:
+    missing = [n for n in names if n not in table.column_names]
+    if missing:
+        raise InputError(f"missing column(s) {', '.join(missing)}", where=str(path))
+
+
+def inputs_from_table(table: pa.Table, path: Path) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """(sample_id (S,), pd_mw (S, n_load) [MW], qd_mvar (S, n_load) [MVAr])."""
+    _require(table, ("sample_id", "pd_mw", "qd_mvar"), path)
+    return (_column_array(table.column("sample_id"), "sample_id"),
+            _column_array(table.column("pd_mw"), "pd_mw"),
+            _column_array(table.column("qd_mvar"), "qd_mvar"))
+
+
+def references_from_table(table: pa.Table, path: Path) -> References:
+    names = ("sample_id", *_VECTOR_REF, "objective_per_h", "status", "iterations", "max_p_mismatch_mw",
+             "max_q_mismatch_mvar", "max_limit_violation", "solve_seconds", "binding", "signature", "margin")
+    _require(table, names, path)
+    c = {n: _column_array(table.column(n), n) for n in names if n != "binding"}
+    binding = tuple(tuple(b) for b in table.column("binding").to_pylist())
+    return References(
+        pg_mw=c["pg_mw"], qg_mvar=c["qg_mvar"], vm_pu=c["vm_pu"], va_deg=c["va_deg"],
+        objective=c["objective_per_h"], status=c["status"].astype(str), iterations=c["iterations"],
+        max_p_mismatch_mw=c["max_p_mismatch_mw"], max_q_mismatch_mvar=c["max_q_mismatch_mvar"],
+        max_limit_violation=c["max_limit_violation"], solve_seconds=c["solve_seconds"],
+        margin=c["margin"], binding=binding, signature=c["signature"].astype(str))

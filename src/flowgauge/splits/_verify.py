@@ -1,0 +1,109 @@
+"""Verifying a split: every recorded hash recomputed, the manifest checked against its schema,
+shapes and sample ids checked against the manifest. Any difference raises IntegrityError naming
+the file and what differs."""
+
+from __future__ import annotations
+
+import json
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+
+from .._io import hash_arrays
+from ..errors import InputError, IntegrityError
+from ._load import split_network
+from ._manifest import check_schema, compute_split_hash
+from ._store import MANIFEST_FILE, read_table, table_columns
+
+__all__ = ["VerifyReport", "verify_split"]
+
+
+@dataclass(frozen=True)
+class VerifyReport:
+    """What was checked: ``files`` verified; ``references_present`` False for a published split."""
+
+    path: Path
+    split_hash: str
+    network: str
+    split: str
+    samples: int
+    files: tuple[str, ...]
+    references_present: bool
+
+
+def _manifest(folder: Path) -> dict:
+    path = folder / MANIFEST_FILE
+    if not path.exists():
+        raise InputError("no manifest.json here: not a finished split", where=str(folder))
+    try:
+        data = json.loads(path.read_text(encoding="utf-8"))
+        check_schema(data, str(path))
+    except (UnicodeDecodeError, json.JSONDecodeError) as exc:
+        raise IntegrityError(f"not valid JSON ({exc})", where=str(path)) from None
+    except InputError as exc:
+        raise IntegrityError(exc.message, where=exc.where) from None
+    got = compute_split_hash(data)
+    if got != data["split_hash"]:
+        raise IntegrityError(f"split_hash recorded {data['split_hash'][:16]}..., the manifest's content gives "
+                             f"{got[:16]}... (the manifest was changed)", where=str(path))
+    return data
+
+
+def _check_file(folder: Path, entry: dict, manifest: dict) -> None:
+    path = folder / entry["path"]
+    if not path.exists():
+        raise IntegrityError("missing: the manifest lists this file", where=str(path))
+    try:
+        cols = table_columns(read_table(path))
+    except InputError as exc:
+        raise IntegrityError(exc.message, where=exc.where) from None
+    recorded = entry["columns"]
+    for name in sorted(set(recorded) | set(cols)):
+        if name not in cols:
+            raise IntegrityError(f"column {name} is missing", where=str(path))
+        if name not in recorded:
+            raise IntegrityError(f"column {name} is not in the manifest", where=str(path))
+        got = hash_arrays({name: cols[name]})
+        if got != recorded[name]:
+            raise IntegrityError(f"column {name} differs from the manifest (hash recorded {recorded[name][:16]}..., "
+                                 f"content gives {got[:16]}...)", where=str(path))
+    got = hash_arrays(cols)
+    if got != entry["hash"]:
+        raise IntegrityError(f"content hash recorded {entry['hash'][:16]}..., content gives {got[:16]}...",
+                             where=str(path))
+    n = manifest["samples"]
+    if not np.array_equal(cols["sample_id"], np.arange(n)):
+        raise IntegrityError(f"sample_id is not 0..{n - 1} as the manifest says", where=str(path))
+    el = manifest["elements"]
+    sizes = {"pd_mw": "load_id", "qd_mvar": "load_id", "pg_mw": "gen_id", "qg_mvar": "gen_id",
+             "vm_pu": "bus_id", "va_deg": "bus_id"}
+    for name, ids in sizes.items():
+        if name in cols and cols[name].shape != (n, len(el[ids])):
+            raise IntegrityError(f"column {name} has shape {cols[name].shape}, the manifest says "
+                                 f"({n}, {len(el[ids])})", where=str(path))
+
+
+def verify_split(path: str | Path) -> VerifyReport:
+    """Recompute every hash of the split in folder ``path``; raise IntegrityError on any difference.
+
+    A published split (no references file) is verified without its references; the manifest
+    still commits to their hash.
+    """
+    folder = Path(path)
+    m = _manifest(folder)
+    files = [MANIFEST_FILE]
+    _check_file(folder, m["files"]["inputs"], m)
+    files.append(m["files"]["inputs"]["path"])
+    ref_entry = m["files"]["references"]
+    present = (folder / ref_entry["path"]).exists()
+    if present:
+        _check_file(folder, ref_entry, m)
+        files.append(ref_entry["path"])
+    net = split_network(m, folder)
+    el = m["elements"]
+    for key in ("bus_id", "gen_id", "load_id", "branch_id"):
+        if getattr(net, key).tolist() != el[key]:
+            raise IntegrityError(f"elements/{key} differs from the network's order", where=str(folder / MANIFEST_FILE))
+    return VerifyReport(path=folder, split_hash=m["split_hash"], network=m["network"]["name"], split=m["split"],
+                        samples=m["samples"], files=tuple(files), references_present=present)

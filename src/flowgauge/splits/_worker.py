@@ -1,0 +1,137 @@
+"""The work of one chunk of samples, run in a worker process (local or Dask).
+
+Each sample slot tries draws (attempt 0, 1, ...) until one gives a loading whose AC-OPF
+reference is accepted; every rejected draw is counted by reason.
+"""
+
+from __future__ import annotations
+
+import io
+import json
+from collections import Counter
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from .._io import atomic_write_bytes
+from ..errors import InputError
+from ..network import Network
+from ._designs import Loading, sample_rng
+from ._store import BINDING_SEP
+
+__all__ = ["Job", "ACCEPTANCE", "MAX_ATTEMPTS", "solver_settings", "make_tools", "solve_chunk",
+           "write_chunk", "read_chunk", "reject_reason"]
+
+# A reference is kept only if converged and every residual / violation is at most this.
+ACCEPTANCE = {"max_p_mismatch_mw": 1e-3, "max_q_mismatch_mvar": 1e-3, "max_limit_violation": 1e-4}
+MAX_ATTEMPTS = 25
+
+
+@dataclass(frozen=True)
+class Job:
+    """Everything a worker needs; picklable. ``net_hash`` keys the per-process solver cache."""
+
+    net: Network
+    net_hash: str
+    design: Any
+    seed: int
+    acceptance: tuple  # ((name, tolerance), ...)
+    max_attempts: int = MAX_ATTEMPTS
+
+
+class _Tools:
+    """The AC-OPF solver and the maximum loadability of one network, built once per process."""
+
+    def __init__(self, net: Network):
+        from ..opf import ACOPF, OPFSettings
+        self.net = net
+        self.settings = OPFSettings()
+        self.solver = ACOPF(net, self.settings)
+
+    def solve(self, pd_mw: np.ndarray, qd_mvar: np.ndarray):
+        return self.solver.solve(pd_mw, qd_mvar, start=None)
+
+    def max_loadability(self, pd_mw, qd_mvar, dir_pd_mw, dir_qd_mvar) -> float | str:
+        from ..opf import max_loadability
+        lr = max_loadability(self.net, pd_mw, qd_mvar, dir_pd_mw, dir_qd_mvar, self.settings)
+        if lr.status != "converged" or not np.isfinite(lr.lam) or lr.lam <= 0:
+            return f"loadability-{lr.status}" if lr.status != "converged" else "loadability-not-positive"
+        return float(lr.lam)
+
+
+def solver_settings() -> dict[str, Any]:
+    """The AC-OPF settings every reference is solved with (recorded in the manifest)."""
+    from ..opf import OPFSettings
+    return OPFSettings().to_dict()
+
+
+_TOOLS: dict[str, Any] = {}
+
+
+def make_tools(net: Network, net_hash: str):
+    if net_hash not in _TOOLS:
+        _TOOLS[net_hash] = _Tools(net)
+    return _TOOLS[net_hash]
+
+
+def reject_reason(res, acceptance: tuple) -> str | None:
+    """None if the solution is accepted, else the reason (one of a fixed set of names)."""
+    if res.status != "converged":
+        return f"opf-{res.status}"
+    for name, tol in acceptance:
+        if not float(getattr(res, name)) <= tol:
+            return f"{name}-above-tolerance"
+    return None
+
+
+def _solve_slot(job: Job, tools, slot: int, rejected: Counter) -> tuple[Loading, Any]:
+    for attempt in range(job.max_attempts):
+        rng = sample_rng(job.seed, slot, attempt)
+        loading = job.design.draw(job.net, rng, tools)
+        if isinstance(loading, str):
+            rejected[loading] += 1
+            continue
+        res = tools.solve(loading.pd_mw, loading.qd_mvar)
+        reason = reject_reason(res, job.acceptance)
+        if reason is None:
+            return loading, res
+        rejected[reason] += 1
+    counts = ", ".join(f"{k}: {v}" for k, v in sorted(rejected.items()))
+    raise InputError(f"{job.max_attempts} draws in a row were rejected for design {job.design.name!r} on "
+                     f"network {job.net.name!r} (rejected so far: {counts})", where=f"sample {slot}")
+
+
+def solve_chunk(job: Job, start: int, stop: int) -> dict[str, np.ndarray]:
+    """Samples ``start`` .. ``stop - 1``: inputs, references and the rejected draws, as arrays."""
+    tools = make_tools(job.net, job.net_hash)
+    rejected: Counter = Counter()
+    rows = [_solve_slot(job, tools, slot, rejected) for slot in range(start, stop)]
+    loads, res = [r[0] for r in rows], [r[1] for r in rows]
+    def stack(attr):
+        return np.stack([np.asarray(getattr(r, attr), float) for r in res])
+    return {
+        "slot": np.arange(start, stop, dtype=np.int64),
+        "pd_mw": np.stack([l.pd_mw for l in loads]), "qd_mvar": np.stack([l.qd_mvar for l in loads]),
+        "margin": np.array([l.margin for l in loads], float),
+        "pg_mw": stack("pg_mw"), "qg_mvar": stack("qg_mvar"), "vm_pu": stack("vm_pu"), "va_deg": stack("va_deg"),
+        "objective_per_h": stack("objective"), "iterations": np.array([int(r.iterations) for r in res], np.int64),
+        "max_p_mismatch_mw": stack("max_p_mismatch_mw"), "max_q_mismatch_mvar": stack("max_q_mismatch_mvar"),
+        "max_limit_violation": stack("max_limit_violation"), "solve_seconds": stack("seconds"),
+        "status": np.array([str(r.status) for r in res], dtype=str),
+        "binding": np.array([BINDING_SEP.join(r.binding) for r in res], dtype=str),
+        "signature": np.array([str(r.signature) for r in res], dtype=str),
+        "rejected": np.array(json.dumps(dict(sorted(rejected.items())))),
+    }
+
+
+def write_chunk(path: Path, chunk: dict[str, np.ndarray]) -> None:
+    buf = io.BytesIO()
+    np.savez(buf, **chunk)
+    atomic_write_bytes(path, buf.getvalue())
+
+
+def read_chunk(path: Path) -> dict[str, np.ndarray]:
+    with np.load(path, allow_pickle=False) as z:
+        return {k: z[k] for k in z.files}
