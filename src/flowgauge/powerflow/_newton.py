@@ -1,0 +1,105 @@
+"""Newton-Raphson in polar coordinates for a stack of samples of one network.
+
+All samples share the Jacobian's sparsity pattern; each iteration evaluates the mismatch
+and the Jacobian values of every active sample in one numpy operation, then solves the
+Newton steps with sparse LU. Samples leave the active set as soon as they converge, fail or
+diverge. The step solve either factorises the block-diagonal matrix of all active samples at
+once ("block") or loops over the samples around one factorisation each ("loop");
+``benchmarks/powerflow.py`` measures both (docs/powerflow.md records the choice).
+"""
+
+from __future__ import annotations
+
+import warnings
+
+import numpy as np
+import scipy.sparse as sp
+import scipy.sparse.linalg as spla
+
+from ..physics import JacobianPattern
+from ._status import CONVERGED, DIVERGED, MAX_ITERATIONS, SINGULAR_JACOBIAN, STATUS_NAMES
+
+__all__ = ["newton", "LINEAR_SOLVERS"]
+
+_CODE = {name: i for i, name in enumerate(STATUS_NAMES)}
+
+
+def _solve_loop(pat: JacobianPattern, data: np.ndarray, f: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Newton steps sample by sample; returns ``(dx, singular)``."""
+    dx = np.zeros_like(f)
+    singular = np.zeros(f.shape[0], bool)
+    for k in range(f.shape[0]):  # loop over samples around one sparse factorisation each
+        try:
+            dx[k] = spla.splu(pat.matrix(data[k])).solve(f[k])
+        except RuntimeError:
+            singular[k] = True
+    return dx, singular
+
+
+def _solve_block(pat: JacobianPattern, data: np.ndarray, f: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Newton steps of all samples from one LU of their block-diagonal Jacobian."""
+    if f.shape[0] == 1:
+        return _solve_loop(pat, data, f)
+    try:
+        lu = spla.splu(pat.block_diagonal(data))
+    except RuntimeError:  # some sample is singular: find which, sample by sample
+        return _solve_loop(pat, data, f)
+    return lu.solve(f.ravel()).reshape(f.shape), np.zeros(f.shape[0], bool)
+
+
+LINEAR_SOLVERS = {"block": _solve_block, "loop": _solve_loop}
+
+
+def _mismatch(ybus: sp.csr_matrix, vm, e, sbus, pvpq, pq):
+    """Mismatch vector [dP(pvpq), dQ(pq)] (S, n) and the bus currents (S, n_bus) [p.u.]."""
+    v = vm * e
+    i_bus = (ybus @ v.T).T
+    mis = v * np.conj(i_bus) - sbus
+    return np.concatenate([mis.real[:, pvpq], mis.imag[:, pq]], axis=1), i_bus
+
+
+def newton(pat: JacobianPattern, ybus: sp.csr_matrix, vm: np.ndarray, va: np.ndarray,
+           sbus: np.ndarray, tol: float, max_iter: int, linear: str = "block"):
+    """Solve the power flows of all samples.
+
+    ``vm`` [p.u.], ``va`` [rad]: start values, shape (S, n_bus), fixed at PV (vm) and
+    reference (vm, va) buses; ``sbus``: specified injections (S, n_bus) complex [p.u.].
+    Converged when ``max |mismatch| < tol`` [p.u.]. Returns ``(vm, va, iterations,
+    status, max_mismatch)`` with status names from ``STATUSES``.
+    """
+    solve = LINEAR_SOLVERS[linear]
+    vm, va = vm.astype(float).copy(), va.astype(float).copy()
+    n_s = vm.shape[0]
+    pvpq, pq, npvpq = pat.pvpq, pat.pq, pat.pvpq.size
+    iterations = np.zeros(n_s, np.int64)
+    code = np.full(n_s, _CODE[MAX_ITERATIONS])
+    max_mis = np.zeros(n_s)
+    active = np.arange(n_s)
+    ybus = sp.csr_matrix(ybus)
+    with np.errstate(all="ignore"), warnings.catch_warnings():
+        warnings.simplefilter("ignore", sp.SparseEfficiencyWarning)
+        for it in range(max_iter + 1):
+            e = np.exp(1j * va[active])
+            f, i_bus = _mismatch(ybus, vm[active], e, sbus[active], pvpq, pq)
+            norm = np.abs(f).max(axis=1, initial=0.0)
+            finite = np.isfinite(norm) & np.isfinite(vm[active]).all(axis=1) & np.isfinite(va[active]).all(axis=1)
+            max_mis[active] = np.where(finite, norm, np.inf)
+            iterations[active] = it
+            done = finite & (norm < tol)
+            code[active[done]] = _CODE[CONVERGED]
+            code[active[~finite]] = _CODE[DIVERGED]
+            keep = finite & ~done
+            if it == max_iter or not keep.any():
+                break
+            active, f, i_bus, e = active[keep], f[keep], i_bus[keep], e[keep]
+            data = pat.values(vm[active], e, i_bus)
+            dx, singular = solve(pat, data, f)
+            if singular.any():
+                code[active[singular]] = _CODE[SINGULAR_JACOBIAN]
+                active, dx = active[~singular], dx[~singular]
+                if active.size == 0:
+                    break
+            va[np.ix_(active, pvpq)] -= dx[:, :npvpq]
+            vm[np.ix_(active, pq)] -= dx[:, npvpq:]
+    status = np.array(STATUS_NAMES, dtype=object)[code].astype(str)
+    return vm, va, iterations, status, max_mis

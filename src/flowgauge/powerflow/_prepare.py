@@ -1,0 +1,127 @@
+"""Per-network data shared by every solve (cached), input checking and injections."""
+
+from __future__ import annotations
+
+import weakref
+from dataclasses import dataclass, field
+
+import numpy as np
+import scipy.sparse as sp
+import scipy.sparse.csgraph as csgraph
+import scipy.sparse.linalg as spla
+
+from ..errors import InputError
+from ..network._model import Network
+from ..physics import Admittance, JacobianPattern, admittance, dc_matrices
+
+__all__ = ["Prepared", "prepared", "stack_input", "bus_injection_setpoints"]
+
+
+@dataclass(eq=False)
+class Prepared:
+    """Data of one network that do not depend on the sample.
+
+    ``pv``/``pq``: solver bus types (a PV bus without a generator counts as PQ, as in the
+    IEEE Common Data Format convention); ``island`` (n_bus,): island label of each bus;
+    ``ref_gen`` (n_ref,): the generator taking the balance at each reference bus (-1: none).
+    """
+
+    net: Network
+    adm: Admittance
+    ref: np.ndarray
+    pv: np.ndarray
+    pq: np.ndarray
+    island: np.ndarray
+    ref_gen: np.ndarray
+    gens_at_bus: np.ndarray
+    bbus: sp.csr_matrix
+    bf: sp.csr_matrix
+    pbusinj: np.ndarray
+    pfinj: np.ndarray
+    _patterns: dict = field(default_factory=dict)
+    _dc_lu: object = None
+
+    def pattern(self, pv: np.ndarray, pq: np.ndarray) -> JacobianPattern:
+        key = (pv.tobytes(), pq.tobytes())
+        if key not in self._patterns:
+            self._patterns[key] = JacobianPattern(self.adm.ybus, pv, pq)
+        return self._patterns[key]
+
+    @property
+    def nonref(self) -> np.ndarray:
+        return np.setdiff1d(np.arange(self.net.n_bus), self.ref)
+
+    def dc_lu(self):
+        """Sparse LU of the DC susceptance matrix without the reference rows and columns."""
+        if self._dc_lu is None:
+            nr = self.nonref
+            try:
+                self._dc_lu = spla.splu(sp.csc_matrix(self.bbus[nr][:, nr]))
+            except RuntimeError:
+                raise InputError("the DC susceptance matrix is singular (a bus or island is not "
+                                 "connected to a reference bus)", where=self.net.name) from None
+        return self._dc_lu
+
+
+_CACHE: "weakref.WeakKeyDictionary[Network, Prepared]" = weakref.WeakKeyDictionary()
+
+
+def prepared(net: Network) -> Prepared:
+    """The cached :class:`Prepared` data of ``net`` (networks are immutable)."""
+    p = _CACHE.get(net)
+    if p is None:
+        p = _prepare(net)
+        _CACHE[net] = p
+    return p
+
+
+def _prepare(net: Network) -> Prepared:
+    nb, ng = net.n_bus, net.n_gen
+    adm = admittance(net)
+    gbus = net.gen_bus_idx
+    gens_at_bus = np.bincount(gbus, minlength=nb)
+    ref = net.ref_idx
+    if ref.size == 0:
+        raise InputError("the network has no reference bus (bus_type 3)", where=f"{net.name}: bus_type")
+    pv = np.flatnonzero((net.bus_type == 2) & (gens_at_bus > 0))
+    pq = np.flatnonzero((net.bus_type != 3) & ~np.isin(np.arange(nb), pv))
+    on = np.asarray(net.in_service, bool)
+    graph = sp.csr_matrix((np.ones(int(on.sum())), (net.f_idx[on], net.t_idx[on])), shape=(nb, nb))
+    _, island = csgraph.connected_components(graph, directed=False)
+    # first generator (in network order) at each reference bus
+    first = np.full(nb, ng)
+    np.minimum.at(first, gbus, np.arange(ng))
+    ref_gen = np.where(first[ref] < ng, first[ref], -1)
+    bbus, bf, pbusinj, pfinj = dc_matrices(net)
+    return Prepared(net=net, adm=adm, ref=ref, pv=pv, pq=pq, island=island, ref_gen=ref_gen,
+                    gens_at_bus=gens_at_bus, bbus=bbus, bf=bf, pbusinj=pbusinj, pfinj=pfinj)
+
+
+def stack_input(name: str, value, default: np.ndarray, n: int, n_samples: int | None) -> np.ndarray:
+    """``value`` (or ``default`` when None) as a float array of shape (n_samples, n).
+
+    ``n_samples`` None: a single solve, ``value`` must have shape (n,). Raises
+    :class:`InputError` naming ``name`` for a wrong shape or a non-finite entry.
+    """
+    if value is None:
+        arr = np.asarray(default, float)
+        return np.broadcast_to(arr, (n_samples or 1, n)).copy()
+    try:
+        arr = np.array(value, dtype=float)
+    except (TypeError, ValueError):
+        raise InputError(f"expected an array of numbers, got {type(value).__name__}", where=name) from None
+    want = (n,) if n_samples is None else (n_samples, n)
+    if arr.shape != want:
+        raise InputError(f"expected shape {want}, got {arr.shape}", where=name)
+    bad = np.argwhere(~np.isfinite(arr))
+    if bad.size:
+        raise InputError(f"non-finite value at index {tuple(int(i) for i in bad[0])}", where=name)
+    return arr.reshape(n_samples or 1, n)
+
+
+def bus_injection_setpoints(p: Prepared, pg_mw, qg_mvar, pd_mw, qd_mvar) -> np.ndarray:
+    """Specified complex injection (generation - load) per bus, shape (S, n_bus) [p.u.]."""
+    adm, base = p.adm, p.net.base_mva
+    sg = adm.cg @ (pg_mw + 1j * qg_mvar).T
+    sd = adm.cl @ (pd_mw + 1j * qd_mvar).T
+    return np.ascontiguousarray(((sg - sd) / base).T)
