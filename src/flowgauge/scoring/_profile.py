@@ -76,5 +76,5 @@ def get_profile(profile: str | ScoringProfile | None) -> ScoringProfile:
         return profile
     if isinstance(profile, str) and profile in PROFILES:
         return PROFILES[profile]
-    raise InputError(f"The 'profile' parameter must be one of {sorted(PROFILES)}. Got {profile!r} instead.",
+    raise InputError(f"The 'profile' parameter of score must be one of {sorted(PROFILES)}. Got {profile!r} instead.",
                      where="profile")
