@@ -1,0 +1,208 @@
+"""Rebuild or verify a leaderboard folder: scorecards, ranking tables and the page."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from pathlib import Path
+
+from .. import __version__
+from .._io import atomic_write_bytes
+from ..errors import InputError, IntegrityError
+from ._board import (Submission, check_commitments, collect_submissions, read_header, scored,
+                     scorecard_is_stale, split_record)
+from ._ranking import RankTable, Scored, rank_table
+from ._render import OUTPUTS, check_seal, render_outputs
+from ._rules import Rules, load_rules
+
+__all__ = ["BoardReport", "build_board", "RULES_FILE"]
+
+RULES_FILE = "rules.toml"
+
+
+@dataclass(frozen=True)
+class BoardReport:
+    """What a rebuild (or a verification) found and did.
+
+    ``records``: one dict per counted submission (paths and hashes); ``tables``: the rankings;
+    ``outputs``: table file name -> its content hash; ``rescored``: scorecards (re)written;
+    ``notes``: commitments matched, submissions not counted, scorecards without a submission.
+    """
+
+    board: Path
+    rules: Rules
+    records: tuple[dict, ...]
+    tables: tuple[RankTable, ...]
+    outputs: dict
+    rescored: tuple[str, ...]
+    notes: tuple[str, ...]
+    verified: bool
+
+
+def build_board(board: str | Path, *, verify: bool = False, workers: int = 1) -> BoardReport:
+    """Regenerate everything in a leaderboard folder from its raw files, or verify it.
+
+    Rebuild: rescore each submission whose scorecard is missing or stale, rank, and write
+    ``ranking.md``, ``ranking.csv``, ``ranking.tex`` and ``index.html`` atomically.
+    Verify (``verify=True``): write nothing; rescore every submission and raise
+    :class:`IntegrityError` naming the first recorded hash or table whose bytes differ.
+    """
+    board = Path(board)
+    rules = load_rules(board / RULES_FILE)
+    profile_hash = _profile_hash(rules)
+    subs = collect_submissions(board)
+    if not subs:
+        raise InputError("no prediction files under submissions/ and no external.toml listing",
+                         where=str(board / "submissions"))
+    cards, rescored = {}, []
+    for sub in subs:
+        sub, card, did = _scorecard(board, sub, rules, profile_hash, verify, workers)
+        cards[sub.shown_path] = (sub, card)
+        if did:
+            rescored.append(sub.scorecard.relative_to(board).as_posix())
+    entries, records, notes, splits_used = _group(board, rules, cards)
+    notes = check_commitments(board, rules, splits_used) + notes + _orphans(board, subs)
+    tables = tuple(t for network in _network_order(entries)
+                   for t in _network_tables(network, entries[network], rules))
+    outputs = render_outputs(board=board, rules=rules, records=records, tables=tables,
+                             entries=entries, splits_used=splits_used, notes=notes)
+    digests = {}
+    for name, data in outputs.items():
+        path = board / name
+        if verify:
+            _verify_output(path, name, data)
+        else:
+            atomic_write_bytes(path, data)
+        digests[name] = check_seal(data, name)
+    return BoardReport(board, rules, tuple(records), tables, digests, tuple(rescored),
+                       tuple(notes), verify)
+
+
+def _profile_hash(rules: Rules) -> str:
+    from ..scoring import get_profile
+    return get_profile(rules.profile).hash
+
+
+def _scorecard(board: Path, sub: Submission, rules: Rules, profile_hash: str, verify: bool,
+               workers: int) -> tuple[Submission, dict, bool]:
+    """The submission (header read) and its scorecard, rescored when missing or stale."""
+    from ..scoring import read_scorecard, score
+    card_rel = sub.scorecard.relative_to(board).as_posix()
+    if sub.file is None:
+        return _listed_only(board, sub, card_rel, verify)
+    sub = read_header(sub)
+    card, reason = None, "it is missing"
+    if sub.scorecard.exists():
+        try:
+            card = read_scorecard(sub.scorecard)
+            reason = scorecard_is_stale(card, sub, profile_hash)
+        except IntegrityError:
+            if verify:
+                raise
+            reason = "its own hash does not match its content"
+    if verify:
+        if reason is not None:
+            raise IntegrityError(f"scorecard of {sub.shown_path} does not match it: {reason}",
+                                 where=card_rel)
+        fresh = score(sub.file, profile=rules.profile, workers=workers).to_dict()
+        if fresh["scorecard_hash"] != card["scorecard_hash"]:
+            raise IntegrityError(
+                f"rescoring {sub.shown_path} gives scorecard hash {fresh['scorecard_hash']}, "
+                f"the committed scorecard records {card['scorecard_hash']}", where=card_rel)
+        return sub, card, False
+    if reason is None:
+        return sub, card, False
+    score(sub.file, profile=rules.profile, workers=workers).write(sub.scorecard)
+    return sub, read_scorecard(sub.scorecard), True
+
+
+def _listed_only(board: Path, sub: Submission, card_rel: str, verify: bool):
+    """A submission listed in external.toml whose file is not here: rank from its scorecard."""
+    from ..scoring import read_scorecard
+    if verify:
+        raise InputError("listed in submissions/external.toml but not found; --verify rescores "
+                         "every submission and needs the file", where=sub.shown_path)
+    if not sub.scorecard.exists():
+        raise InputError("listed in submissions/external.toml but not found, and it has no "
+                         f"scorecard ({card_rel}) to rank from", where=sub.shown_path)
+    card = read_scorecard(sub.scorecard)
+    if card.get("predictions_hash") != sub.listed_hash:
+        raise IntegrityError(f"scorecard records predictions_hash {card.get('predictions_hash')}, "
+                             f"external.toml lists {sub.listed_hash}", where=card_rel)
+    header = {"split": card["split"], "model": card["model"]}
+    return Submission(sub.shown_path, None, sub.scorecard, sub.listed_hash, header,
+                      sub.listed_hash), card, False
+
+
+def _group(board: Path, rules: Rules, cards: dict):
+    """network -> entry -> split -> Scored, the hash records, notes and the splits used."""
+    entries: dict = {}
+    records, notes, cache, owner = [], [], {}, {}
+    for shown, (sub, card) in sorted(cards.items()):
+        network, split = card["split"]["network"], card["split"]["split"]
+        name = card["model"]["name"]
+        if (rules.networks is not None and network not in rules.networks) or split not in rules.splits:
+            notes.append(f"{shown}: {network}/{split} is not counted by the rules")
+            continue
+        key = (network, name, split)
+        if key in owner:
+            raise InputError(f"entry {name!r} already has a {network}/{split} submission "
+                             f"({owner[key]}); one submission per entry and split", where=shown)
+        owner[key] = shown
+        rec = split_record(card["split"]["split_hash"], cache)
+        entries.setdefault(network, {}).setdefault(name, {})[split] = scored(sub, card, board)
+        records.append({
+            "submission": shown, "network": network, "split": split, "entry": name,
+            "predictions_hash": sub.predictions_hash,
+            "scorecard": sub.scorecard.relative_to(board).as_posix(),
+            "scorecard_hash": card["scorecard_hash"], "split_hash": rec["split_hash"]})
+    by_split: dict = {}
+    for r in records:
+        first = by_split.setdefault((r["network"], r["split"]), r)
+        if first["split_hash"] != r["split_hash"]:
+            raise InputError(f"scored against split {r['split_hash']}, while {first['submission']} "
+                             f"was scored against {first['split_hash']}; entries of one "
+                             f"{r['network']}/{r['split']} table must share one split",
+                             where=r["submission"])
+    return entries, records, notes, sorted(cache.values(), key=lambda s: (s["network"], s["split"]))
+
+
+def _network_order(entries: dict) -> list[str]:
+    from ..network import bundled_names
+    order = {n: i for i, n in enumerate(bundled_names())}
+    return sorted(entries, key=lambda n: (order.get(n, len(order)), n))
+
+
+def _network_tables(network: str, entries: dict, rules: Rules) -> list[RankTable]:
+    tables = [rank_table(network, "all", rules.splits, entries, rules)]
+    for split in rules.splits:
+        present = {e: s for e, s in entries.items() if split in s}
+        if present:
+            tables.append(rank_table(network, split, (split,), present, rules))
+    return tables
+
+
+def _orphans(board: Path, subs: list[Submission]) -> list[str]:
+    known = {s.scorecard for s in subs}
+    root = board / "scorecards"
+    found = sorted(p for p in root.rglob("*.json") if p not in known) if root.is_dir() else []
+    return [f"{p.relative_to(board).as_posix()}: scorecard without a submission (not used)"
+            for p in found]
+
+
+def _verify_output(path: Path, name: str, expected: bytes) -> None:
+    try:
+        data = path.read_bytes()
+    except FileNotFoundError:
+        raise IntegrityError("table missing; run flowgauge rank to write it", where=name) from None
+    check_seal(data, name)
+    if data != expected:
+        line = _first_difference(data, expected)
+        raise IntegrityError(f"bytes differ from the table regenerated from the raw files "
+                             f"(first at line {line})", where=name)
+
+
+def _first_difference(a: bytes, b: bytes) -> int:
+    for i, (x, y) in enumerate(zip(a.splitlines(), b.splitlines()), start=1):
+        if x != y:
+            return i
+    return min(len(a.splitlines()), len(b.splitlines())) + 1

@@ -1,0 +1,223 @@
+"""Write the ranking as Markdown, CSV, LaTeX (booktabs) and one self-contained HTML page.
+
+Every output records the hash of each submission, scorecard and split, of the rules file and
+the flowgauge version, and ends with a line holding the SHA-256 of all bytes before it.
+"""
+
+from __future__ import annotations
+
+import csv
+import io
+import math
+import re
+from pathlib import Path
+
+import jinja2
+
+from .. import __version__
+from .._io import round_sig, sha256_hex
+from ..errors import IntegrityError
+from ._plots import split_bars_svg, tradeoff_svg
+from ._ranking import RankTable, metric_value
+from ._rules import METRICS, Rules
+
+__all__ = ["OUTPUTS", "CAUTION", "render_outputs", "seal", "check_seal"]
+
+# output file -> (comment opener, comment closer) of its final content-hash line
+OUTPUTS = {
+    "ranking.md": ("", ""),
+    "ranking.csv": ("# ", ""),
+    "ranking.tex": ("% ", ""),
+    "index.html": ("<!-- ", " -->"),
+}
+
+CAUTION = ("Scores measure agreement with reference optimisation results on model networks. "
+           "They do not certify that any dispatch is safe to operate: operation follows the "
+           "grid operator's rules, local grid codes and licensed engineering practice.")
+
+_SEAL_RE = re.compile(rb"content-sha256: ([0-9a-f]{64})")
+
+
+def seal(body: str, name: str) -> bytes:
+    """``body`` followed by the line that records its SHA-256."""
+    data = body.encode("utf-8")
+    opener, closer = OUTPUTS[name]
+    return data + f"{opener}content-sha256: {sha256_hex(data)}{closer}\n".encode("utf-8")
+
+
+def check_seal(data: bytes, name: str) -> str:
+    """The content hash a table records for itself, checked against its bytes."""
+    head, _, last = data.rstrip(b"\n").rpartition(b"\n")
+    match = _SEAL_RE.search(last)
+    if match is None:
+        raise IntegrityError("does not end with its content-sha256 line", where=name)
+    recorded, actual = match.group(1).decode(), sha256_hex(head + b"\n")
+    if recorded != actual:
+        raise IntegrityError(f"records content hash {recorded}, its content hashes to {actual}",
+                             where=name)
+    return recorded
+
+
+def _env() -> jinja2.Environment:
+    env = jinja2.Environment(
+        loader=jinja2.PackageLoader("flowgauge.leaderboard", "templates"),
+        autoescape=jinja2.select_autoescape(["html"]), trim_blocks=True, lstrip_blocks=True,
+        keep_trailing_newline=True, undefined=jinja2.StrictUndefined)
+    env.filters["tex"] = _tex_escape
+    env.filters["md"] = _md_escape
+    return env
+
+
+def _fmt(v: float | None, digits: int) -> str:
+    return "" if v is None or (isinstance(v, float) and math.isnan(v)) else f"{v:.{digits}f}"
+
+
+def _num(v) -> str:
+    """Machine-readable number: 10 significant digits, empty for missing."""
+    if v is None or (isinstance(v, float) and math.isnan(v)):
+        return ""
+    return f"{round_sig(float(v)):.10g}"
+
+
+_DIGITS = {"restoration_failure_rate": 4, "restored_gap_pct_mean": 3, "raw_gap_pct_mean": 3}
+
+
+def _ci_text(ci, digits: int) -> str:
+    return "" if ci is None else f"[{_fmt(ci[0], digits)}, {_fmt(ci[1], digits)}]"
+
+
+def _table_view(t: RankTable, rules: Rules, entries: dict) -> dict:
+    digits = [_DIGITS[k.metric] for k in rules.keys]
+    rows = []
+    for s in t.standings:
+        cards = [entries[s.entry][sp].card for sp in t.splits]
+        rows.append({
+            "rank": s.rank, "entry": s.entry, "tied": s.tied,
+            "cells": [_fmt(v, d) for v, d in zip(s.values, digits)],
+            "raw": [_num(v) for v in s.values],
+            "per_split_rfr": [_fmt(metric_value(c, "restoration_failure_rate"), 4) for c in cards],
+            "ci": _ci_text(s.diff_ci, digits[0]),
+            "ci_raw": ("", "") if s.diff_ci is None else tuple(_num(x) for x in s.diff_ci),
+            "submissions": [entries[s.entry][sp].where for sp in t.splits],
+        })
+    return {"network": t.network, "scope": t.scope, "splits": list(t.splits), "rows": rows,
+            "unranked": [f"{e} ({why})" for e, why in t.unranked],
+            "id": f"{t.network}-{t.scope}"}
+
+
+def _context(*, board, rules, records, tables, entries, splits_used, notes, with_plots: bool):
+    keys = [{"metric": k.metric, "direction": k.direction, "label": METRICS[k.metric].label}
+            for k in rules.keys]
+    networks = []
+    for network in dict.fromkeys(t.network for t in tables):
+        ts = [_table_view(t, rules, entries[network]) for t in tables if t.network == network]
+        net = {"name": network, "tables": ts,
+               "details": _details(network, entries[network], rules, records)}
+        if with_plots:
+            overall = next(t for t in tables if t.network == network and t.scope == "all")
+            net["tradeoff_svg"] = tradeoff_svg(network, entries[network], rules.splits,
+                                               [s.entry for s in overall.standings])
+            net["bars_svg"] = split_bars_svg(network, entries[network], rules.splits)
+        networks.append(net)
+    return {
+        "version": __version__, "rules": rules, "rules_sha256": rules.sha256, "keys": keys,
+        "level_pct": f"{rules.level * 100:g}", "networks": networks, "records": records,
+        "splits_used": splits_used, "notes": notes, "caution": CAUTION,
+    }
+
+
+def _details(network: str, entries: dict, rules: Rules, records: list[dict]) -> list[dict]:
+    out = []
+    for name in sorted(entries):
+        per_split = []
+        for split in [s for s in rules.splits if s in entries[name]]:
+            sc = entries[name][split]
+            a = sc.card["aggregates"]
+            rec = next(r for r in records if r["scorecard"] == sc.where)
+            per_split.append({
+                "split": split, "samples": a.get("samples"),
+                "rfr": _fmt(a.get("restoration_failure_rate"), 4),
+                "rfr_ci": _ci_text((a.get("ci95") or {}).get("restoration_failure_rate"), 4),
+                "restored": {k: _fmt((a.get("restored_gap_pct") or {}).get(k), 3)
+                             for k in ("mean", "median", "p95", "max")},
+                "restored_ci": _ci_text((a.get("ci95") or {}).get("restored_gap_pct_mean"), 3),
+                "raw": {k: _fmt((a.get("raw_gap_pct") or {}).get(k), 3)
+                        for k in ("mean", "median", "p95", "max")},
+                "causes": [(c, _fmt(v, 4)) for c, v in sorted(
+                    (a.get("restoration_failure_causes") or {}).items())],
+                "violations": [(f, _fmt(v.get("share"), 4), _fmt(v.get("mean"), 4),
+                                _fmt(v.get("max"), 4))
+                               for f, v in sorted((a.get("violations") or {}).items())],
+                "inference_ms": (a.get("inference_ms") or {}),
+                "speedup": a.get("speedup_indicative"),
+                "record": rec,
+            })
+        model = entries[name][next(iter(entries[name]))].card.get("model") or {}
+        link = model.get("link") or ""
+        out.append({"name": name, "id": _slug(f"{network}-{name}"), "model": model,
+                    "authors": _authors(model.get("authors")),
+                    "link": link if re.match(r"https?://", str(link)) else "",
+                    "splits": per_split})
+    return out
+
+
+def _authors(value) -> str:
+    if isinstance(value, list):
+        return ", ".join(str(v) for v in value)
+    return "" if value is None else str(value)
+
+
+def _slug(text: str) -> str:
+    return "entry-" + re.sub(r"[^A-Za-z0-9_-]+", "-", text).strip("-")
+
+
+def _tex_escape(text) -> str:
+    repl = {"\\": r"\textbackslash{}", "&": r"\&", "%": r"\%", "$": r"\$", "#": r"\#",
+            "_": r"\_", "{": r"\{", "}": r"\}", "~": r"\textasciitilde{}",
+            "^": r"\textasciicircum{}"}
+    return "".join(repl.get(c, c) for c in str(text))
+
+
+def _md_escape(text) -> str:
+    return re.sub(r"([\\`*_\[\]|<>])", r"\\\1", str(text))
+
+
+def _csv(ctx: dict, tables: tuple[RankTable, ...], entries: dict) -> str:
+    buf = io.StringIO()
+    w = csv.writer(buf, lineterminator="\n")
+    w.writerow(["network", "scope", "splits", "rank", "entry", "tied_with_above",
+                *[k["metric"] for k in ctx["keys"]], "diff_to_above_ci_low",
+                "diff_to_above_ci_high", "submissions", "predictions_sha256",
+                "scorecards", "scorecard_sha256", "split_sha256", "rules_sha256",
+                "flowgauge_version"])
+    by_card = {r["scorecard"]: r for r in ctx["records"]}
+    for t in tables:
+        for s in t.standings:
+            recs = [by_card[entries[t.network][s.entry][sp].where] for sp in t.splits]
+            ci = ("", "") if s.diff_ci is None else (_num(s.diff_ci[0]), _num(s.diff_ci[1]))
+            w.writerow([t.network, t.scope, " ".join(t.splits), s.rank, s.entry,
+                        int(s.tied), *[_num(v) for v in s.values], *ci,
+                        " ".join(r["submission"] for r in recs),
+                        " ".join(r["predictions_hash"] for r in recs),
+                        " ".join(r["scorecard"] for r in recs),
+                        " ".join(r["scorecard_hash"] for r in recs),
+                        " ".join(r["split_hash"] for r in recs),
+                        ctx["rules_sha256"], ctx["version"]])
+    return buf.getvalue()
+
+
+def render_outputs(*, board: Path, rules: Rules, records, tables, entries, splits_used,
+                   notes) -> dict[str, bytes]:
+    """Table file name -> bytes (sealed), in a fixed order; nothing is written here."""
+    env = _env()
+    kw = dict(board=board, rules=rules, records=records, tables=tables, entries=entries,
+              splits_used=splits_used, notes=notes)
+    ctx = _context(**kw, with_plots=False)
+    out = {
+        "ranking.md": seal(env.get_template("ranking.md.j2").render(ctx), "ranking.md"),
+        "ranking.csv": seal(_csv(ctx, tables, entries), "ranking.csv"),
+        "ranking.tex": seal(env.get_template("ranking.tex.j2").render(ctx), "ranking.tex"),
+    }
+    page_ctx = _context(**kw, with_plots=True)
+    out["index.html"] = seal(env.get_template("page.html.j2").render(page_ctx), "index.html")
+    return out
