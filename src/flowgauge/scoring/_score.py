@@ -43,28 +43,21 @@ RAW_FAMILIES = tuple(k for k in FAMILY_TOLERANCE if k.startswith("raw_"))
 RESTORED_FAMILIES = tuple(k for k in FAMILY_TOLERANCE if k.startswith("restored_"))
 
 
-def _get(obj: Any, name: str) -> Any:
-    return obj[name] if isinstance(obj, dict) else getattr(obj, name)
-
-
-def _split_hash_of(preds) -> str:
-    split = preds.header.get("split") if isinstance(preds.header, dict) else None
-    h = split.get("split_hash") if isinstance(split, dict) else None
-    if not isinstance(h, str):
-        raise InputError("the header names no split hash", where="/header/split/split_hash")
-    return h
-
-
 def _resolve(predictions, split):
-    from ..splits import find_split, load_split
-    from ..submission import check_predictions, load_predictions
+    """Validate (schema, then against the split) and return the predictions and the split with
+    its references."""
+    from ..splits import load_split
+    from ..submission import check_predictions
 
-    preds = load_predictions(predictions) if isinstance(predictions, (str, os.PathLike)) else predictions
-    if split is None:
-        split = load_split(find_split(_split_hash_of(preds)))
-    elif isinstance(split, (str, os.PathLike)):
+    if isinstance(split, (str, os.PathLike)):
         split = load_split(Path(split))
-    check_predictions(preds, split)
+    report = check_predictions(predictions, split)
+    preds, split = report.predictions, report.split
+    if split.references is None:
+        split = load_split(split.path)
+    if split.references is None:
+        raise InputError("the split has no reference solutions (a published split); scoring needs them",
+                         where=str(split.path))
     return preds, split
 
 
@@ -149,7 +142,7 @@ def _header(split, preds, profile: ScoringProfile) -> dict[str, Any]:
         "format": FORMAT_NAME,
         "format_version": FORMAT_VERSION,
         "flowgauge_version": __version__,
-        "split": {"network": split.network.name, "split": split.name, "split_hash": split.split_hash},
+        "split": {"network": split.network_name, "split": split.name, "split_hash": split.split_hash},
         "predictions_hash": preds.content_hash,
         "profile": profile.to_dict(),
         "model": model if isinstance(model, dict) else {},
@@ -187,7 +180,7 @@ def score(predictions, split=None, *, profile: str | ScoringProfile | None = Non
 
     pd_mw = np.asarray(split.pd_mw, float)[order]
     qd_mvar = np.asarray(split.qd_mvar, float)[order]
-    ref_cost = np.asarray(_get(split.references, "objective"), float)[order]
+    ref_cost = np.asarray(split.references.objective, float)[order]
     pg, vm = pick(preds.pg_mw), pick(preds.vm_pu)
     va, qg = pick(_optional(preds.va_deg)), pick(_optional(preds.qg_mvar))
     inference = pick(_optional(preds.inference_ms))
