@@ -65,6 +65,7 @@ def tradeoff_svg(network: str, entries: dict, splits: tuple[str, ...], order: li
                 ax.scatter([mx], [my], facecolor="none", edgecolor=_colour(i), s=160, lw=1.5)
                 ax.annotate(name, (mx, my), xytext=(6, 6), textcoords="offset points",
                             color=_colour(i))
+        ax.margins(x=0.18, y=0.15)  # room for the entry labels beside the rings
         ax.set_xlabel("restoration failure rate (lower is better)")
         ax.set_ylabel("mean restored gap [%] (lower is better)")
         ax.set_title(f"{network}: restored gap against restoration failure rate")
