@@ -45,7 +45,9 @@ def _as_dict(net, res) -> dict:
 
 
 def _print_tables(net, res) -> None:
-    table = Table(title=f"Power flow of {net.name}: {res.status} in {res.iterations} iterations")
+    console.print(f"Power flow of {net.name}: {res.status} in {res.iterations} iterations "
+                  f"(largest mismatch {res.max_mismatch_pu:.2e} p.u.)")
+    table = Table(title="Buses")
     for col in ("bus", "type", "vm_pu", "va_deg"):
         table.add_column(col, justify="right")
     for i, t, v, a in zip(net.bus_id.tolist(), net.bus_type.tolist(), res.vm_pu.tolist(), res.va_deg.tolist()):
