@@ -17,7 +17,7 @@ from flowgauge.network import load_network
 from flowgauge.physics import (admittance, balance_residuals, branch_flows, bus_injections,
                                dc_matrices, powerflow_jacobian, ptdf)
 
-from _pf_reference import pypower_ac, pypower_internal
+from test_powerflow_support import pypower_ac, pypower_internal
 
 NETS = ["ieee57", "ieee118", "ieee300"]  # taps, phase shifters (ieee300), parallel branches
 

@@ -13,7 +13,7 @@ from pypower.idx_gen import QG
 from flowgauge.cli import main
 from flowgauge.network import load_network, write_network_json
 
-from _pf_reference import pypower_ac
+from test_powerflow_support import pypower_ac
 
 
 def test_json_output_matches_pypower(capsys):

@@ -16,7 +16,7 @@ from pypower.idx_gen import PG, QG
 from flowgauge.network import load_network, to_ppc
 from flowgauge.powerflow import solve_dc_powerflow, solve_powerflow
 
-from _pf_reference import pypower_ac, pypower_dc
+from test_powerflow_support import pypower_ac, pypower_dc
 
 
 @pytest.mark.parametrize("name", ["ieee30", "ieee57", "ieee118", "ieee300"])

@@ -1,4 +1,4 @@
-"""Helpers shared by the power-flow and physics tests: reference solutions from PYPOWER."""
+"""Reference solutions from PYPOWER shared by the power-flow and physics tests (no tests here)."""
 
 from __future__ import annotations
 
