@@ -1,0 +1,236 @@
+"""A primal-dual interior-point method for sparse nonlinear programs.
+
+Solves::
+
+    min f(x)  subject to  g(x) = 0,  h(x) <= 0,  x_lower <= x <= x_upper
+
+by Newton steps on the perturbed Karush-Kuhn-Tucker conditions, following
+
+* H. Wang, C. E. Murillo-Sanchez, R. D. Zimmerman, R. J. Thomas, "On computational issues of
+  market-based optimal power flow", IEEE Trans. Power Systems 22(3):1185-1193, 2007,
+  doi:10.1109/TPWRS.2007.901301 (the primal-dual method, step-length rules and stopping tests);
+* J. Nocedal, S. J. Wright, Numerical Optimization, 2nd ed., Springer 2006, ch. 19
+  (interior-point methods for nonlinear programming).
+
+Inequalities (including the finite variable bounds) get slacks ``z > 0`` with ``h + z = 0``
+and multipliers ``mu > 0``; the barrier parameter ``gamma`` follows ``centering`` times the mean
+complementarity ``z'mu / n_ineq`` and goes to zero. Eliminating ``dz`` and ``dmu`` reduces each
+Newton step to the symmetric indefinite system::
+
+    [ M   dg' ] [dx ]   [ -N ]      M = Lxx + dh' diag(mu/z) dh
+    [ dg  0   ] [dlam] = [ -g ]     N = Lx + dh' (mu*h + gamma) / z
+
+of size n_x + n_eq, factorised by scipy's sparse LU. Step lengths keep ``z`` and ``mu``
+positive (a fraction ``step_to_boundary`` of the step to the boundary at most).
+
+The problem object supplies values and the linear algebra pieces, so each formulation can
+assemble its matrices its own way (see :class:`Problem`).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Protocol
+
+import numpy as np
+import scipy.sparse as sp
+import scipy.sparse.linalg as spla
+
+from ._settings import OPFSettings
+
+__all__ = ["Problem", "IPOutcome", "interior_point"]
+
+
+class Problem(Protocol):
+    """What :func:`interior_point` needs from a formulation.
+
+    ``n_x``, ``n_eq``, ``n_ineq``: sizes. ``x_lower``, ``x_upper``: bounds, shape (n_x,), with
+    -inf / +inf for none. ``evaluate(x)`` stores the point and returns ``(f, g, h)``; the other
+    methods refer to the last evaluated point: ``grad_lagrangian(lam, mu)`` is
+    ``df + dg' lam + dh' mu`` (bounds excluded), ``jac_h(v)`` is ``dh v``, ``jac_h_t(w)`` is
+    ``dh' w``, and ``kkt_matrix(lam, mu, d_h, d_x, reg)`` the CSC matrix
+    ``[[Lxx + dh' diag(d_h) dh + diag(d_x), dg'], [dg, -reg I]]``.
+    """
+
+    n_x: int
+    n_eq: int
+    n_ineq: int
+    x_lower: np.ndarray
+    x_upper: np.ndarray
+
+    def evaluate(self, x: np.ndarray) -> tuple[float, np.ndarray, np.ndarray]: ...
+    def grad_lagrangian(self, lam: np.ndarray, mu: np.ndarray) -> np.ndarray: ...
+    def jac_h(self, v: np.ndarray) -> np.ndarray: ...
+    def jac_h_t(self, w: np.ndarray) -> np.ndarray: ...
+    def kkt_matrix(self, lam: np.ndarray, mu: np.ndarray, d_h: np.ndarray, d_x: np.ndarray,
+                   reg: float) -> sp.csc_matrix: ...
+
+
+@dataclass(frozen=True)
+class IPOutcome:
+    """Raw outcome of :func:`interior_point`.
+
+    ``x`` (n_x,); ``lam`` (n_eq,); ``mu`` (n_ineq,) for ``h``; ``mu_lower``, ``mu_upper`` (n_x,)
+    for the bounds (0 where a bound is infinite); ``status`` a key of the status table;
+    ``feasibility`` (unscaled max residual / violation), ``gradient`` (scaled dual
+    infeasibility), ``complementarity`` (scaled), ``cost_change`` (relative).
+    """
+
+    x: np.ndarray
+    lam: np.ndarray
+    mu: np.ndarray
+    mu_lower: np.ndarray
+    mu_upper: np.ndarray
+    f: float
+    status: str
+    iterations: int
+    feasibility: float
+    gradient: float
+    complementarity: float
+    cost_change: float
+
+
+def _max_step(v: np.ndarray, dv: np.ndarray, xi: float) -> float:
+    neg = dv < 0
+    if not np.any(neg):
+        return 1.0
+    return float(min(xi * np.min(-v[neg] / dv[neg]), 1.0))
+
+
+class _Bounds:
+    """Finite variable bounds as extra inequality rows ``x_lower - x <= 0``, ``x - x_upper <= 0``."""
+
+    def __init__(self, lower: np.ndarray, upper: np.ndarray):
+        self.il = np.flatnonzero(np.isfinite(lower))
+        self.iu = np.flatnonzero(np.isfinite(upper))
+        self.lower = lower[self.il]
+        self.upper = upper[self.iu]
+        self.nl = self.il.size
+        self.n = self.il.size + self.iu.size
+
+    def values(self, x: np.ndarray) -> np.ndarray:
+        return np.concatenate([self.lower - x[self.il], x[self.iu] - self.upper])
+
+    def jac(self, v: np.ndarray) -> np.ndarray:
+        return np.concatenate([-v[self.il], v[self.iu]])
+
+    def jac_t(self, w: np.ndarray, n_x: int) -> np.ndarray:
+        out = np.zeros(n_x)
+        np.add.at(out, self.il, -w[: self.nl])
+        np.add.at(out, self.iu, w[self.nl:])
+        return out
+
+    def diag(self, d: np.ndarray, n_x: int) -> np.ndarray:
+        out = np.zeros(n_x)
+        np.add.at(out, self.il, d[: self.nl])
+        np.add.at(out, self.iu, d[self.nl:])
+        return out
+
+
+def _factor_solve(problem: Problem, lam, mu_h, d_h, d_x, rhs):
+    """Solve the reduced Newton system; retry once with a small regularisation."""
+    for reg in (0.0, 1e-10, 1e-7):
+        w = problem.kkt_matrix(lam, mu_h, d_h, d_x + reg, reg)
+        try:
+            with np.errstate(all="ignore"):
+                sol = spla.splu(w, permc_spec="MMD_AT_PLUS_A", diag_pivot_thresh=0.1).solve(rhs)
+        except RuntimeError:
+            continue
+        if np.all(np.isfinite(sol)):
+            return sol
+    return None
+
+
+def interior_point(problem: Problem, x0: np.ndarray, settings: OPFSettings,
+                   lam0: np.ndarray | None = None) -> IPOutcome:
+    """Run the primal-dual interior-point method from ``x0`` (shape (n_x,)).
+
+    ``lam0`` optionally gives starting equality multipliers (warm start). Returns an
+    :class:`IPOutcome`; never raises for a problem that fails to converge.
+    """
+    n_x, n_eq = problem.n_x, problem.n_eq
+    bounds = _Bounds(problem.x_lower, problem.x_upper)
+    n_h = problem.n_ineq
+    x = np.asarray(x0, float).copy()
+    f, g, h = problem.evaluate(x)
+    hb = np.concatenate([h, bounds.values(x)])
+    n_in = hb.size
+    z = np.ones(n_in)
+    far = hb < -1.0
+    z[far] = -hb[far]
+    gamma = 1.0
+    mu = gamma / z
+    lam = np.zeros(n_eq) if lam0 is None else np.asarray(lam0, float).copy()
+    xi = settings.step_to_boundary
+    f_prev = f
+    grad_scale = None
+    feas_hist: list[float] = []
+    status = "iteration_limit"
+    it = 0
+    conds = (np.inf, np.inf, np.inf, np.inf)
+    while True:
+        lx = problem.grad_lagrangian(lam, mu[:n_h]) + bounds.jac_t(mu[n_h:], n_x)
+        if grad_scale is None:
+            grad_scale = 1.0 + float(np.max(np.abs(lx), initial=0.0))
+        feas = max(float(np.max(np.abs(g), initial=0.0)), float(np.max(hb, initial=0.0)))
+        norm_x = float(np.max(np.abs(x), initial=0.0))
+        mult = max(float(np.max(np.abs(lam), initial=0.0)), float(np.max(mu, initial=0.0)))
+        grad = float(np.max(np.abs(lx), initial=0.0)) / (1.0 + mult)
+        comp = float(z @ mu) / (1.0 + norm_x)
+        cost = abs(f - f_prev) / (1.0 + abs(f_prev))
+        conds = (feas, grad, comp, cost)
+        if not np.all(np.isfinite([f, feas, grad, comp])):
+            status = "numerical_failure"
+            break
+        if (feas <= settings.feasibility_tol and grad <= settings.gradient_tol
+                and comp <= settings.complementarity_tol and cost <= settings.cost_tol):
+            status = "converged"
+            break
+        feas_hist.append(feas)
+        k = settings.stall_iterations
+        if (len(feas_hist) > k and feas > settings.feasibility_tol and feas > 0.5 * feas_hist[-k - 1]
+                and mult > settings.multiplier_limit * grad_scale):
+            status = "infeasible"
+            break
+        if it >= settings.max_iter:
+            status = "iteration_limit"
+            break
+        it += 1
+        zinv = 1.0 / z
+        d = mu * zinv
+        w = zinv * (mu * hb + gamma)
+        n_vec = lx + problem.jac_h_t(w[:n_h]) + bounds.jac_t(w[n_h:], n_x)
+        sol = _factor_solve(problem, lam, mu[:n_h], d[:n_h], bounds.diag(d[n_h:], n_x),
+                            -np.concatenate([n_vec, g]))
+        if sol is None:
+            status = "numerical_failure"
+            break
+        dx, dlam = sol[:n_x], sol[n_x:]
+        dz = -hb - z - np.concatenate([problem.jac_h(dx), bounds.jac(dx)])
+        dmu = -mu + zinv * (gamma - mu * dz)
+        ap = _max_step(z, dz, xi)
+        ad = _max_step(mu, dmu, xi)
+        if ap < settings.min_step or ad < settings.min_step:
+            # a vanishing step far from feasibility: the usual sign of an infeasible problem
+            status = "infeasible" if conds[0] > settings.feasibility_tol else "numerical_failure"
+            break
+        x = x + ap * dx
+        z = z + ap * dz
+        lam = lam + ad * dlam
+        mu = mu + ad * dmu
+        if n_in:
+            gamma = settings.centering * float(z @ mu) / n_in
+        f_prev = f
+        f, g, h = problem.evaluate(x)
+        hb = np.concatenate([h, bounds.values(x)])
+    if status != "converged" and status == "iteration_limit" and conds[0] > settings.feasibility_tol:
+        big = max(float(np.max(np.abs(lam), initial=0.0)), float(np.max(mu, initial=0.0)))
+        if big > settings.multiplier_limit * (grad_scale or 1.0):
+            status = "infeasible"
+    mu_lower = np.zeros(n_x)
+    mu_upper = np.zeros(n_x)
+    mu_lower[bounds.il] = mu[n_h:n_h + bounds.nl]
+    mu_upper[bounds.iu] = mu[n_h + bounds.nl:]
+    return IPOutcome(x=x, lam=lam, mu=mu[:n_h].copy(), mu_lower=mu_lower, mu_upper=mu_upper, f=float(f),
+                     status=status, iterations=it, feasibility=conds[0], gradient=conds[1],
+                     complementarity=conds[2], cost_change=conds[3])
