@@ -1,10 +1,14 @@
-"""The flowgauge network JSON format (documented in docs/formats.md, schema in
+"""The flowgauge network JSON format (documented in docs/network-format.md, schema in
 schema/network.schema.json): one object with ``buses``, ``loads``, ``generators`` and
-``branches`` as lists of objects whose field names carry their units."""
+``branches`` as lists of objects whose field names carry their units.
+
+Reading validates the object against the JSON Schema first (errors name the JSON pointer),
+then builds the arrays and runs the load-time checks of ``_checks.py``."""
 
 from __future__ import annotations
 
 import json
+from functools import lru_cache
 from pathlib import Path
 from typing import Any
 
@@ -15,10 +19,11 @@ from ..errors import InputError
 from ._model import BUS_PQ, BUS_PV, BUS_REF, Network
 
 __all__ = ["network_to_dict", "network_from_dict", "read_network_json", "write_network_json",
-           "FORMAT_NAME", "FORMAT_VERSION"]
+           "validate_network_dict", "FORMAT_NAME", "FORMAT_VERSION", "SCHEMA_PATH"]
 
 FORMAT_NAME = "flowgauge-network"
 FORMAT_VERSION = 1
+SCHEMA_PATH = Path(__file__).resolve().parents[1] / "schema" / "network.schema.json"
 _TYPE_TO_NAME = {BUS_PQ: "PQ", BUS_PV: "PV", BUS_REF: "reference"}
 _NAME_TO_TYPE = {v: k for k, v in _TYPE_TO_NAME.items()}
 
@@ -80,6 +85,8 @@ def _column(rows: list, key: str, kind: str, table: str, source: str) -> np.ndar
             raise InputError("missing field", where=where)
         v = row[key]
         if kind == "int":
+            if isinstance(v, float) and v.is_integer():
+                v = int(v)  # JSON does not tell 1 from 1.0; the schema's "integer" accepts both
             if isinstance(v, bool) or not isinstance(v, int):
                 raise InputError(f"expected an integer id, got {v!r}", where=where)
         elif kind == "bustype":
@@ -98,8 +105,113 @@ def _column(rows: list, key: str, kind: str, table: str, source: str) -> np.ndar
     return np.asarray(vals, dtype=dtype).reshape(len(rows))
 
 
+@lru_cache(maxsize=1)
+def _validator():
+    import jsonschema
+
+    schema = json.loads(SCHEMA_PATH.read_text(encoding="utf-8"))
+    return jsonschema.Draft202012Validator(schema)
+
+
+def _pointer(path) -> str:
+    return "/" + "/".join(str(p).replace("~", "~0").replace("/", "~1") for p in path) if path else "/"
+
+
+def _schema_message(err) -> str:
+    kind, inst = err.validator, err.instance
+    if kind == "type":
+        want = err.validator_value if isinstance(err.validator_value, str) else " or ".join(err.validator_value)
+        return f"expected {want}, got {json.dumps(inst)[:60]}"
+    if kind == "required":
+        return f"missing field {err.message.split(' is a required')[0]}"
+    if kind == "additionalProperties":
+        extra = sorted(set(inst) - set(err.schema.get("properties", {})))
+        return f"unknown field(s) {', '.join(repr(k) for k in extra)} (see docs/network-format.md)"
+    if kind in ("enum", "const"):
+        allowed = err.validator_value if kind == "enum" else [err.validator_value]
+        return f"expected one of {', '.join(json.dumps(a) for a in allowed)}, got {json.dumps(inst)[:60]}"
+    if kind in ("minimum", "exclusiveMinimum"):
+        op = ">=" if kind == "minimum" else ">"
+        return f"expected a number {op} {err.validator_value}, got {json.dumps(inst)}"
+    return err.message
+
+
+_FAST_KEYWORDS = {"type", "enum", "const", "minimum", "exclusiveMinimum", "description"}
+_PY_TYPES = {"number": (int, float), "integer": (int, float), "boolean": (bool,), "null": (type(None),),
+             "string": (str,)}
+
+
+def _column_ok(col: list, spec: dict) -> bool:
+    """True when every value of ``col`` satisfies the property schema ``spec``."""
+    if "const" in spec:
+        return all(v == spec["const"] for v in col)
+    if "enum" in spec:
+        return set(col) <= set(spec["enum"])
+    types = [spec["type"]] if isinstance(spec["type"], str) else spec["type"]
+    allowed = tuple(t for name in types for t in _PY_TYPES[name])
+    if not all(type(v) in allowed for v in col):  # type(True) is bool, not int: booleans are not numbers
+        return False
+    nums = [v for v in col if type(v) in (int, float)]
+    if "integer" in types and not all(type(v) is int or v.is_integer() for v in nums):
+        return False
+    if nums and ("minimum" in spec or "exclusiveMinimum" in spec):
+        a = np.asarray(nums, dtype=float)
+        if "minimum" in spec and not np.all(a >= spec["minimum"]):
+            return False
+        if "exclusiveMinimum" in spec and not np.all(a > spec["exclusiveMinimum"]):
+            return False
+    return True
+
+
+def _rows_ok(rows: list, item: dict) -> bool:
+    """Fast check of a table's rows against the schema of one row (``$defs`` entry). Only the
+    keywords in ``_FAST_KEYWORDS`` are understood; anything else defers to jsonschema."""
+    props = item["properties"]
+    if item.get("additionalProperties", True) is not False or any(set(p) - _FAST_KEYWORDS for p in props.values()):
+        return False
+    if not all(type(r) is dict for r in rows):
+        return False
+    required, known = set(item["required"]), set(props)
+    for keys in {frozenset(r) for r in rows}:
+        if not (required <= keys <= known):
+            return False
+    return all(_column_ok([r[k] for r in rows if k in r], spec) for k, spec in props.items())
+
+
+def _fast_valid(data: Any) -> bool:
+    """True when ``data`` certainly satisfies the schema. The top level is checked by jsonschema
+    with each table cut to its first row; the rows are checked column by column here, which is
+    about 30 times faster than jsonschema on a 10,000-bus network."""
+    schema = _validator().schema
+    if not isinstance(data, dict):
+        return False
+    head = {k: (v[:1] if k in _TABLE_DEFS and isinstance(v, list) else v) for k, v in data.items()}
+    if not _validator().is_valid(head):
+        return False
+    return all(_rows_ok(data[t], schema["$defs"][d]) for t, d in _TABLE_DEFS.items())
+
+
+_TABLE_DEFS = {"buses": "bus", "loads": "load", "generators": "generator", "branches": "branch"}
+
+
+def validate_network_dict(data: Any, *, source: str = "<network>") -> None:
+    """Check ``data`` against schema/network.schema.json; :class:`InputError` names the JSON
+    pointer of the first (most relevant) problem."""
+    from jsonschema.exceptions import best_match
+
+    if _fast_valid(data):
+        return
+    err = best_match(_validator().iter_errors(data))
+    if err is not None:
+        raise InputError(_schema_message(err), where=f"{source}: {_pointer(err.absolute_path)}")
+
+
 def network_from_dict(data: Any, *, source: str = "<network>", check: bool = True) -> Network:
-    """Build a :class:`Network` from the JSON object; raises :class:`InputError` naming the field."""
+    """Build a :class:`Network` from the JSON object; raises :class:`InputError` naming the field.
+
+    ``check``: validate against the JSON Schema and run the load-time checks (default)."""
+    if check:
+        validate_network_dict(data, source=source)
     if not isinstance(data, dict):
         raise InputError("expected a JSON object at the top level", where=source)
     if data.get("format") != FORMAT_NAME:
@@ -120,6 +232,9 @@ def network_from_dict(data: Any, *, source: str = "<network>", check: bool = Tru
     name = data.get("name")
     if not isinstance(name, str) or not name:
         raise InputError("expected a non-empty string", where=f"{source}: /name")
+    # A rating of 0, like null, means "no thermal limit" (several published systems use 0).
+    rate = kwargs["rate_mva"]
+    kwargs["rate_mva"] = np.where(rate == 0, np.nan, rate)
     net = Network(name=name, base_mva=float(base), provenance=dict(data.get("provenance") or {}), **kwargs)
     if check:
         from ._checks import check_network
@@ -127,14 +242,27 @@ def network_from_dict(data: Any, *, source: str = "<network>", check: bool = Tru
     return net
 
 
+def _reject_constant(name: str) -> Any:
+    raise ValueError(f"{name} is not a JSON number (write null for an absent value)")
+
+
 def read_network_json(path: str | Path) -> Network:
+    """Read, validate and check a network file in our JSON format."""
     path = Path(path)
     try:
-        data = json.loads(path.read_text(encoding="utf-8"))
+        text = path.read_text(encoding="utf-8")
     except FileNotFoundError:
         raise InputError("no such file", where=str(path)) from None
-    except (UnicodeDecodeError, json.JSONDecodeError) as exc:
-        raise InputError(f"not valid JSON ({exc})", where=str(path)) from None
+    except IsADirectoryError:
+        raise InputError("expected a network file, got a directory", where=str(path)) from None
+    except UnicodeDecodeError as exc:
+        raise InputError(f"not UTF-8 text ({exc.reason} at byte {exc.start})", where=str(path)) from None
+    try:
+        data = json.loads(text, parse_constant=_reject_constant)
+    except json.JSONDecodeError as exc:
+        raise InputError(f"not valid JSON: {exc.msg}", where=f"{path}:{exc.lineno}:{exc.colno}") from None
+    except ValueError as exc:
+        raise InputError(f"not valid JSON: {exc}", where=str(path)) from None
     return network_from_dict(data, source=str(path))
 
 
