@@ -105,7 +105,7 @@ def _list_column(col: pa.ChunkedArray, field: str, problems: Problems) -> np.nda
         return None
     lens = pc.list_value_length(col).to_numpy(zero_copy_only=False).astype(np.int64)
     width = int(np.bincount(lens[lens > 0]).argmax()) if (lens > 0).any() else 0
-    for r in np.flatnonzero(lens != width):
+    for r in np.flatnonzero((lens == 0) | (lens != width)):
         problems.add(f"column {field}, row {r}", f"has {lens[r]} numbers but the other rows have {width}"
                      if lens[r] else "is empty; expected one number per element")
     if problems.count > start:

@@ -60,14 +60,15 @@ class Predictions:
         """The array fields given, in file-format order."""
         return tuple(f for f in ARRAY_FIELDS if getattr(self, f) is not None)
 
-    def where(self, field: str | None, k: int, item: int | None = None) -> str:
-        """Where the ``k``-th sample (sorted order) sits in the file: a JSON pointer or a
-        Parquet column and row."""
+    def where(self, field: str, k: int, item: int | None = None) -> str:
+        """Where ``field`` of the ``k``-th sample (sorted order) sits in the file: a JSON
+        pointer, a Parquet column and row, or ``field[row, item]`` for arrays in memory."""
         r = int(self.row[k])
         if self.format == "parquet":
-            return f"column {field or 'sample_id'}, row {r}" + ("" if item is None else f", item {item}")
-        tail = ("" if field is None else f"/{field}") + ("" if item is None else f"/{item}")
-        return f"/samples/{r}{tail}"
+            return f"column {field}, row {r}" + ("" if item is None else f", item {item}")
+        if self.format is None:
+            return f"{field}[{r}" + ("]" if item is None else f", {item}]")
+        return f"/samples/{r}/{field}" + ("" if item is None else f"/{item}")
 
 
 def make_predictions(header: dict, sample_id: np.ndarray, arrays: dict, inference_ms: np.ndarray,

@@ -132,7 +132,7 @@ def stack_rows(rows: list, field: str, problems: Problems, where) -> np.ndarray 
         return None
     lens = np.fromiter(map(len, rows), dtype=np.int64, count=len(rows))
     width = int(np.bincount(lens[lens > 0]).argmax()) if (lens > 0).any() else 0
-    for i in np.flatnonzero(lens != width):
+    for i in np.flatnonzero((lens == 0) | (lens != width)):
         problems.add(where(i), f"has {lens[i]} numbers but the other samples have {width}"
                      if lens[i] else f"is empty; expected an array of {field} numbers")
     if not set(map(type, chain.from_iterable(rows))) <= _NUMBER:

@@ -138,17 +138,16 @@ def _check_ids(pred: Predictions, expected: np.ndarray, problems: Problems) -> N
     dup[1:] = ids[1:] == ids[:-1]
     for k in np.flatnonzero(dup):
         first = int(np.searchsorted(ids, ids[k]))
-        problems.add(pred.where(None, k) + ("/sample_id" if pred.format != "parquet" else ""),
-                     f"sample id {ids[k]} appears more than once (first at {pred.where(None, first)})",
+        problems.add(pred.where("sample_id", k),
+                     f"sample id {ids[k]} appears more than once (first at {pred.where('sample_id', first)})",
                      ids[k])
     extra = ~np.isin(ids, expected)
     for k in np.flatnonzero(extra):
-        problems.add(pred.where(None, k) + ("/sample_id" if pred.format != "parquet" else ""),
-                     f"sample id {ids[k]} is not in the split", ids[k])
+        problems.add(pred.where("sample_id", k), f"sample id {ids[k]} is not in the split", ids[k])
     missing = np.setdiff1d(expected, ids)
     if missing.size:
         shown = ", ".join(str(i) for i in missing[:10]) + (", ..." if missing.size > 10 else "")
-        problems.add("/samples" if pred.format != "parquet" else "column sample_id",
+        problems.add({"json": "/samples", "parquet": "column sample_id"}.get(pred.format, "sample_id"),
                      f"{missing.size} of the split's {expected.size} sample ids are missing: {shown}")
 
 
