@@ -23,22 +23,26 @@ def rank(board: Path, verify: bool, workers: int) -> None:
     Rescores a submission whose scorecard is missing or stale, ranks by rules.toml and writes
     ranking.md, ranking.csv, ranking.tex and index.html.
     """
+    from rich.markup import escape
+
     from ..leaderboard import build_board
     from ._common import console
 
+    def say(text: str) -> None:
+        console.print(text, soft_wrap=True)
+
     report = build_board(board, verify=verify, workers=workers)
     for table in report.tables:
-        if table.scope != "all":
-            continue
-        order = ", ".join(f"{s.rank}. {s.entry}" for s in table.standings)
-        console.print(f"[bold]{table.network}[/bold]: {order or 'no complete entry'}")
+        if table.scope == "all":
+            order = ", ".join(f"{s.rank}. {s.entry}" for s in table.standings)
+            say(f"[bold]{escape(table.network)}[/bold]: {escape(order or 'no complete entry')}")
     for note in report.notes:
-        console.print(f"note: {note}")
+        say(f"note: {escape(note)}")
     if report.rescored:
-        console.print(f"rescored {len(report.rescored)} submission(s): " + ", ".join(report.rescored))
+        say(f"rescored {len(report.rescored)} submission(s): {escape(', '.join(report.rescored))}")
     verb = "verified" if verify else "wrote"
     for name, digest in report.outputs.items():
-        console.print(f"{verb} {(board / name).as_posix()}  content-sha256 {digest}")
+        say(f"{verb} {escape((board / name).as_posix())}  content-sha256 {digest}")
     if verify:
-        console.print(f"all {len(report.records)} submissions rescored to their recorded "
-                      "scorecards; every table matches its raw files")
+        say(f"all {len(report.records)} submissions rescore to their recorded scorecards; "
+            "every table matches the one rebuilt from the raw files")
