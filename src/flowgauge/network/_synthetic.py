@@ -1,0 +1,228 @@
+"""Synthetic transmission networks of 50 to 10,000 buses for scaling measurements.
+
+The method (documented in docs/networks.md):
+
+1. Bus positions: uniform points in a square whose side grows with sqrt(n_bus), so the typical
+   line length stays near 20-30 km whatever the size.
+2. Topology: the Euclidean minimum spanning tree of the points (on their Delaunay triangulation)
+   keeps the network connected; short extra Delaunay edges, chosen with a random preference for
+   short ones, mesh it to an average bus degree of 2.7.
+3. Lines: 230 kV overhead lines; length = straight distance x a route factor; reactance per km
+   with a random x/r ratio; line charging per km.
+4. Loads at 80% of buses (log-normal sizes, lagging power factor 0.90-0.98); generators at 20%
+   (log-normal sizes clipped to a 20x range, total capacity 1.4x the load, reactive range
+   -0.3 to +0.5 of capacity; cheap baseload, mid-merit and peaking cost classes, quadratic costs).
+5. Base case: every generator at the same fraction of its capacity, covering the load plus the
+   losses estimated from a DC power flow; the largest generator's bus is the reference bus.
+6. Ratings: the DC base-case flow times a random margin of 1.3-2.2, at least 60 MVA, rounded up
+   to 10 MVA; so ratings are plausible and some bind under load growth, but none at base load.
+
+All randomness comes from ``numpy.random.Generator(numpy.random.PCG64(seed))``, drawn in a fixed
+order: the same (n_bus, seed) gives identical arrays.
+"""
+
+from __future__ import annotations
+
+import numbers
+
+import numpy as np
+import scipy.sparse as sp
+from scipy.sparse import csgraph
+from scipy.sparse.linalg import splu
+from scipy.spatial import Delaunay
+
+from ..errors import InputError
+from ._model import BUS_PQ, BUS_PV, BUS_REF, Network
+
+__all__ = ["synthetic", "MIN_BUSES", "MAX_BUSES"]
+
+MIN_BUSES, MAX_BUSES = 50, 10_000
+BASE_MVA = 100.0
+BASE_KV = 345.0
+KM_PER_UNIT_SIDE = 25.0          # square side [km] = this x sqrt(n_bus)
+ROUTE_FACTOR = (1.05, 1.35)      # line length over straight distance
+MIN_LINE_KM = 2.0
+AVERAGE_DEGREE = 2.7             # real transmission grids: about 2.5-3 (common practice)
+X_OHM_PER_KM = 0.37              # 345 kV single circuit, bundled conductors (common practice)
+B_SIEMENS_PER_KM = 4.4e-6
+X_OVER_R = (6.0, 12.0)
+LOAD_SHARE, GEN_SHARE = 0.8, 0.2
+LOAD_MEDIAN_MW, LOAD_SIGMA = 35.0, 0.6
+POWER_FACTOR = (0.95, 0.99)
+CAPACITY_OVER_LOAD = 1.4
+GEN_SIGMA, GEN_SIZE_RANGE = 0.7, 20.0
+Q_RANGE_PER_MW = (-0.3, 0.5)
+VG_PU = 1.02                     # one setpoint: unequal setpoints of close PV buses drive large reactive flows
+REGION_BUSES = 50                # generation is balanced against load per region of about this many buses
+VMIN_PU, VMAX_PU = 0.94, 1.06
+# cost classes: share, c1 range [$/MWh]; c2 = c1 x k / pmax with k in K_RANGE (marginal cost
+# rises 10-40% from zero to full output)
+COST_CLASSES = [(0.3, 8.0, 20.0), (0.45, 25.0, 45.0), (0.25, 60.0, 120.0)]
+K_RANGE = (0.05, 0.2)
+RATING_MARGIN = (1.3, 2.2)
+MIN_RATING_MVA, RATING_STEP_MVA = 150.0, 10.0
+
+
+def synthetic(n_bus: int, seed: int = 0) -> Network:
+    """A connected, solvable synthetic network with ``n_bus`` buses, deterministic in ``seed``.
+
+    ``n_bus``: integer from 50 to 10,000. ``seed``: non-negative integer. Bus ids are 1..n_bus;
+    loads, generators and branches are numbered 1.. in their array order.
+    """
+    n = _check_args(n_bus, seed)
+    rng = np.random.Generator(np.random.PCG64(seed))
+    xy = rng.random((n, 2)) * KM_PER_UNIT_SIDE * np.sqrt(n)          # [km]
+    f, t = _topology(xy, rng)
+    line = _line_parameters(xy, f, t, rng)
+    load_bus, pd, qd = _loads(n, rng)
+    gen = _generators(_regions(xy), load_bus, pd, rng)
+    bus_type = np.full(n, BUS_PQ, dtype=np.int64)
+    bus_type[gen["bus"]] = BUS_PV
+    ref = gen["bus"][np.argmax(gen["pmax"])]
+    bus_type[ref] = BUS_REF
+    pg, flow_mw = _base_dispatch(n, f, t, line, load_bus, pd, gen["bus"], gen["pmax"], ref)
+    rate = _ratings(flow_mw, rng)
+    vm = np.ones(n)
+    vm[gen["bus"]] = gen["vg"]
+    n_br, n_gen = f.size, gen["bus"].size
+    return Network(
+        name=f"synthetic-{n}-seed{seed}",
+        base_mva=BASE_MVA,
+        bus_id=np.arange(1, n + 1, dtype=np.int64), bus_type=bus_type,
+        vmin_pu=np.full(n, VMIN_PU), vmax_pu=np.full(n, VMAX_PU), base_kv=np.full(n, BASE_KV),
+        gs_mw=np.zeros(n), bs_mvar=np.zeros(n), vm_pu=vm, va_deg=np.zeros(n),
+        load_id=np.arange(1, load_bus.size + 1, dtype=np.int64), load_bus=load_bus + 1,
+        pd_mw=pd, qd_mvar=qd,
+        gen_id=np.arange(1, n_gen + 1, dtype=np.int64), gen_bus=gen["bus"] + 1,
+        pmin_mw=np.zeros(n_gen), pmax_mw=gen["pmax"], qmin_mvar=gen["qmin"], qmax_mvar=gen["qmax"],
+        vg_pu=gen["vg"], pg_mw=pg, qg_mvar=np.zeros(n_gen),
+        cost_c2=gen["c2"], cost_c1=gen["c1"], cost_c0=gen["c0"],
+        branch_id=np.arange(1, n_br + 1, dtype=np.int64), from_bus=f + 1, to_bus=t + 1,
+        r_pu=line["r"], x_pu=line["x"], b_pu=line["b"], rate_mva=rate, tap=np.ones(n_br),
+        shift_deg=np.zeros(n_br), angmin_deg=np.full(n_br, -360.0), angmax_deg=np.full(n_br, 360.0),
+        in_service=np.ones(n_br, dtype=bool),
+        provenance={
+            "source": "synthetic network generated by flowgauge.network.synthetic; not a real system",
+            "n_bus": n, "seed": int(seed),
+            "method": "docs/networks.md (synthetic networks)",
+        },
+    )
+
+
+def _check_args(n_bus, seed) -> int:
+    if (isinstance(n_bus, bool) or not isinstance(n_bus, numbers.Integral)
+            or not MIN_BUSES <= n_bus <= MAX_BUSES):
+        raise InputError(f"n_bus must be an integer from {MIN_BUSES} to {MAX_BUSES}, got {n_bus!r}",
+                         where="n_bus")
+    if isinstance(seed, bool) or not isinstance(seed, numbers.Integral) or seed < 0:
+        raise InputError(f"seed must be a non-negative integer, got {seed!r}", where="seed")
+    return int(n_bus)
+
+
+def _topology(xy: np.ndarray, rng: np.random.Generator) -> tuple[np.ndarray, np.ndarray]:
+    """Branch end positions (from < to), sorted: spanning tree plus short meshing edges."""
+    n = xy.shape[0]
+    tri = Delaunay(xy).simplices
+    pairs = np.sort(np.concatenate([tri[:, [0, 1]], tri[:, [1, 2]], tri[:, [0, 2]]]), axis=1)
+    pairs = np.unique(pairs, axis=0)
+    length = np.linalg.norm(xy[pairs[:, 0]] - xy[pairs[:, 1]], axis=1)
+    graph = sp.coo_matrix((length + 1e-9, (pairs[:, 0], pairs[:, 1])), shape=(n, n)).tocsr()
+    tree = csgraph.minimum_spanning_tree(graph).tocoo()
+    in_tree = np.zeros(pairs.shape[0], dtype=bool)
+    key = pairs[:, 0].astype(np.int64) * n + pairs[:, 1]
+    tree_key = np.minimum(tree.row, tree.col).astype(np.int64) * n + np.maximum(tree.row, tree.col)
+    in_tree[np.searchsorted(key, tree_key)] = True
+    n_extra = max(0, int(round(AVERAGE_DEGREE * n / 2)) - (n - 1))
+    candidates = np.flatnonzero(~in_tree)
+    priority = length[candidates] * rng.lognormal(0.0, 0.5, candidates.size)
+    extra = candidates[np.argsort(priority, kind="stable")[:n_extra]]
+    chosen = np.sort(np.concatenate([np.flatnonzero(in_tree), extra]))
+    return pairs[chosen, 0].astype(np.int64), pairs[chosen, 1].astype(np.int64)
+
+
+def _line_parameters(xy, f, t, rng) -> dict[str, np.ndarray]:
+    """Series r, x and total charging b [p.u. on BASE_MVA, BASE_KV], shape (n_branch,)."""
+    km = np.linalg.norm(xy[f] - xy[t], axis=1) * rng.uniform(*ROUTE_FACTOR, f.size)
+    km = np.maximum(km, MIN_LINE_KM)
+    z_base = BASE_KV**2 / BASE_MVA
+    x = X_OHM_PER_KM * km / z_base
+    r = x / rng.uniform(*X_OVER_R, f.size)
+    b = B_SIEMENS_PER_KM * km * z_base
+    return {"r": np.round(r, 7), "x": np.round(x, 7), "b": np.round(b, 7)}
+
+
+def _loads(n: int, rng) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Load bus positions (sorted), pd [MW] and qd [MVAr] (lagging), shape (n_load,)."""
+    n_load = int(round(LOAD_SHARE * n))
+    bus = np.sort(rng.choice(n, n_load, replace=False))
+    pd = np.round(LOAD_MEDIAN_MW * rng.lognormal(0.0, LOAD_SIGMA, n_load), 2)
+    pf = rng.uniform(*POWER_FACTOR, n_load)
+    qd = np.round(pd * np.tan(np.arccos(pf)), 2)
+    return bus.astype(np.int64), pd, qd
+
+
+def _generators(region: np.ndarray, load_bus: np.ndarray, pd: np.ndarray, rng) -> dict[str, np.ndarray]:
+    """Generator bus positions (sorted), capacities, reactive ranges, setpoints and costs.
+
+    Capacities are scaled per region (``region``: shape (n_bus,), region number of each bus) to
+    CAPACITY_OVER_LOAD times the region's load, so long-distance transfers stay moderate at any
+    size; a region without a generator is served by its neighbours."""
+    n = region.size
+    n_gen = max(2, int(round(GEN_SHARE * n)))
+    bus = np.sort(rng.choice(n, n_gen, replace=False)).astype(np.int64)
+    size = np.clip(rng.lognormal(0.0, GEN_SIGMA, n_gen), 1.0 / np.sqrt(GEN_SIZE_RANGE), np.sqrt(GEN_SIZE_RANGE))
+    n_region = int(region.max()) + 1
+    region_load = np.bincount(region[load_bus], weights=pd, minlength=n_region)
+    region_size = np.bincount(region[bus], weights=size, minlength=n_region)
+    unserved = region_load[region_size == 0].sum()  # shared out over the other regions
+    scale = CAPACITY_OVER_LOAD * region_load * (1.0 + unserved / (pd.sum() - unserved))
+    pmax = np.round(size * scale[region[bus]] / region_size[region[bus]], 1)
+    share = np.array([c[0] for c in COST_CLASSES])
+    cls = rng.choice(len(COST_CLASSES), n_gen, p=share / share.sum())
+    lo = np.array([c[1] for c in COST_CLASSES])[cls]
+    hi = np.array([c[2] for c in COST_CLASSES])[cls]
+    c1 = np.round(rng.uniform(lo, hi), 2)
+    c2 = np.round(c1 * rng.uniform(*K_RANGE, n_gen) / pmax, 6)
+    c0 = np.round(pmax * rng.uniform(0.5, 2.0, n_gen), 1)
+    vg = np.full(n_gen, VG_PU)
+    return {"bus": bus, "pmax": pmax, "qmin": np.round(Q_RANGE_PER_MW[0] * pmax, 1),
+            "qmax": np.round(Q_RANGE_PER_MW[1] * pmax, 1), "vg": vg, "c2": c2, "c1": c1, "c0": c0}
+
+
+def _regions(xy: np.ndarray) -> np.ndarray:
+    """Region number of each bus, shape (n_bus,): square cells holding about REGION_BUSES buses."""
+    n = xy.shape[0]
+    cells = max(1, int(round(np.sqrt(n / REGION_BUSES))))
+    side = xy.max() * (1 + 1e-12)
+    ij = np.minimum((xy / side * cells).astype(np.int64), cells - 1)
+    return ij[:, 0] * cells + ij[:, 1]
+
+
+def _dc_flow(n, f, t, x, p_mw, ref) -> np.ndarray:
+    """DC power flow: branch flows [MW], shape (n_branch,), for injections p_mw, shape (n_bus,)."""
+    y = 1.0 / x
+    inc = sp.csr_matrix((np.r_[np.ones(f.size), -np.ones(f.size)],
+                         (np.r_[np.arange(f.size), np.arange(f.size)], np.r_[f, t])), shape=(f.size, n))
+    bbus = (inc.T @ sp.diags(y) @ inc).tocsc()
+    keep = np.flatnonzero(np.arange(n) != ref)
+    theta = np.zeros(n)
+    theta[keep] = splu(bbus[keep][:, keep].tocsc()).solve(p_mw[keep] / BASE_MVA)
+    return y * (theta[f] - theta[t]) * BASE_MVA
+
+
+def _base_dispatch(n, f, t, line, load_bus, pd, gen_bus, pmax, ref) -> tuple[np.ndarray, np.ndarray]:
+    """Generator outputs [MW] at one common fraction of capacity covering load plus estimated
+    losses (sum of r f^2 over the DC flow), and the DC branch flows [MW] of that dispatch."""
+    load_at_bus = np.bincount(load_bus, weights=pd, minlength=n)
+    total = pd.sum()
+    pg = pmax * (total / pmax.sum())
+    flow = _dc_flow(n, f, t, line["x"], np.bincount(gen_bus, weights=pg, minlength=n) - load_at_bus, ref)
+    loss_mw = float(np.sum(line["r"] * (flow / BASE_MVA) ** 2) * BASE_MVA)
+    pg = np.round(pmax * ((total + loss_mw) / pmax.sum()), 2)
+    return pg, flow
+
+
+def _ratings(flow_mw: np.ndarray, rng) -> np.ndarray:
+    """Thermal ratings [MVA]: |base flow| x a random margin, at least MIN_RATING_MVA."""
+    rate = np.maximum(np.abs(flow_mw) * rng.uniform(*RATING_MARGIN, flow_mw.size), MIN_RATING_MVA)
+    return np.ceil(rate / RATING_STEP_MVA) * RATING_STEP_MVA
