@@ -7,11 +7,11 @@ from ._metrics import (METRICS, Metric, active_balance_residual_mw, angle_differ
                        thermal_overload_mva, thermal_overload_pct)
 from ._profile import DEFAULT_PROFILE, PROFILES, ScoringProfile, get_profile
 from ._restoration import CAUSES, Restoration, restore
-from ._score import FAMILY_TOLERANCE, RAW_FAMILIES, RESTORED_FAMILIES, score
+from ._score import FAMILY_TOLERANCE, RAW_FAMILIES, RESTORED_FAMILIES, score, score_arrays
 from ._scorecard import FORMAT_NAME, FORMAT_VERSION, Scorecard, read_scorecard, scorecard_hash
 
 __all__ = [
-    "score", "Scorecard", "read_scorecard", "scorecard_hash", "FORMAT_NAME", "FORMAT_VERSION",
+    "score", "score_arrays", "Scorecard", "read_scorecard", "scorecard_hash", "FORMAT_NAME", "FORMAT_VERSION",
     "ScoringProfile", "DEFAULT_PROFILE", "PROFILES", "get_profile",
     "Restoration", "restore", "CAUSES", "FAMILY_TOLERANCE", "RAW_FAMILIES", "RESTORED_FAMILIES",
     "METRICS", "Metric", "check_stacked", "generator_cost_per_h", "optimality_gap_pct", "bound_violation",

@@ -26,7 +26,7 @@ from ._profile import ScoringProfile
 
 __all__ = ["CAUSES", "CHUNK_SAMPLES", "Restoration", "restore", "solve_restoration_chunk"]
 
-CHUNK_SAMPLES = 256
+CHUNK_SAMPLES = 64
 
 # The one table of restoration failure causes: name -> what it means. Several may apply.
 CAUSES: dict[str, str] = {

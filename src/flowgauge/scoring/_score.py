@@ -20,7 +20,7 @@ from ._profile import ScoringProfile, get_profile
 from ._restoration import CAUSES, restore
 from ._scorecard import FORMAT_NAME, FORMAT_VERSION, Scorecard
 
-__all__ = ["score", "RAW_FAMILIES", "RESTORED_FAMILIES", "FAMILY_TOLERANCE"]
+__all__ = ["score", "score_arrays", "RAW_FAMILIES", "RESTORED_FAMILIES", "FAMILY_TOLERANCE"]
 
 # Violation family -> profile tolerance key judging "violating" (thermal MVA is judged on % of rating).
 FAMILY_TOLERANCE = {
@@ -149,41 +149,31 @@ def _header(split, preds, profile: ScoringProfile) -> dict[str, Any]:
     }
 
 
-def score(predictions, split=None, *, profile: str | ScoringProfile | None = None, workers: int = 1,
-          scheduler: str | None = None, progress: Callable[[int, int], None] | None = None) -> Scorecard:
-    """Score a predictions file (a path or a loaded ``Predictions``) against its split.
+def score_arrays(net: Network, *, sample_id, pd_mw, qd_mvar, reference_cost_per_h, pg_mw, vm_pu, va_deg=None,
+                 qg_mvar=None, inference_ms=None, reference_solve_ms: float | None = None,
+                 profile: str | ScoringProfile | None = None, workers: int = 1, scheduler: str | None = None,
+                 progress: Callable[[int, int], None] | None = None) -> tuple[dict, pd.DataFrame]:
+    """The scorer's core on arrays already checked and aligned, rows sorted by ``sample_id``.
 
-    ``split``: a loaded ``Split``, a split folder, or None to find the split from the split hash
-    in the predictions header. ``profile``: a scoring profile or its name (``default``).
-    ``workers``: local processes for the restoration power flows; ``scheduler``: the address of
-    a Dask scheduler to spread them over instead. ``progress(done, total)`` is called as the
-    restoration power flows finish. The scorecard is the same bytes whatever ``workers`` and
-    ``scheduler``.
+    ``pd_mw``, ``qd_mvar`` (S, n_load) [MW, MVAr]; ``reference_cost_per_h`` (S,) [$/h];
+    ``pg_mw`` (S, n_gen) [MW]; ``vm_pu`` (S, n_bus) [p.u.]; optional ``va_deg`` (S, n_bus) [deg],
+    ``qg_mvar`` (S, n_gen) [MVAr], ``inference_ms`` (S,) [ms] (NaN: not reported);
+    ``reference_solve_ms``: the reference solver's median time per sample [ms].
+    Returns (aggregates, per-sample table).
     """
     if isinstance(workers, bool) or not isinstance(workers, (int, np.integer)) or workers < 1:
         raise InputError(f"The 'workers' parameter of score must be an integer >= 1. Got {workers!r} instead.",
                          where="workers")
     prof = get_profile(profile)
-    preds, split = _resolve(predictions, split)
-    net: Network = split.network
     if not net.has_costs:
         raise InputError("the network has no generator costs, so the optimality gap is undefined",
                          where=f"network {net.name}")
-    sid = np.asarray(split.sample_id)
-    order = np.argsort(sid, kind="stable")
-    sid = sid[order]
-    pos = {v: i for i, v in enumerate(np.asarray(preds.sample_id).tolist())}
-    take = np.fromiter((pos[v] for v in sid.tolist()), dtype=np.int64, count=sid.size)
-
-    def pick(a):
-        return None if a is None else np.asarray(a, float)[take]
-
-    pd_mw = np.asarray(split.pd_mw, float)[order]
-    qd_mvar = np.asarray(split.qd_mvar, float)[order]
-    ref_cost = np.asarray(split.references.objective, float)[order]
-    pg, vm = pick(preds.pg_mw), pick(preds.vm_pu)
-    va, qg = pick(_optional(preds.va_deg)), pick(_optional(preds.qg_mvar))
-    inference = pick(_optional(preds.inference_ms))
+    sid = np.asarray(sample_id)
+    pd_mw, qd_mvar = np.asarray(pd_mw, float), np.asarray(qd_mvar, float)
+    ref_cost = np.asarray(reference_cost_per_h, float)
+    pg, vm = np.asarray(pg_mw, float), np.asarray(vm_pu, float)
+    va, qg = _optional(va_deg), _optional(qg_mvar)
+    inference = _optional(inference_ms)
 
     raw_cost = generator_cost_per_h(pg, cost_c2=net.cost_c2, cost_c1=net.cost_c1, cost_c0=net.cost_c0)
     fams = _raw_metrics(net, pd_mw, qd_mvar, pg, vm, va, qg)
@@ -210,5 +200,39 @@ def score(predictions, split=None, *, profile: str | ScoringProfile | None = Non
         **{k: fams[k] for k in RESTORED_FAMILIES},
         "inference_ms": inference if inference is not None else np.full(sid.size, np.nan),
     })
-    aggregates = _aggregates(table, fams, viol, rest, _reference_ms(split), prof)
+    return _aggregates(table, fams, viol, rest, reference_solve_ms, prof), table
+
+
+def score(predictions, split=None, *, profile: str | ScoringProfile | None = None, workers: int = 1,
+          scheduler: str | None = None, progress: Callable[[int, int], None] | None = None) -> Scorecard:
+    """Score a predictions file (a path or a loaded ``Predictions``) against its split.
+
+    ``split``: a loaded ``Split``, a split folder, or None to find the split from the split hash
+    in the predictions header. ``profile``: a scoring profile or its name (``default``).
+    ``workers``: local processes for the restoration power flows; ``scheduler``: the address of
+    a Dask scheduler to spread them over instead. ``progress(done, total)`` is called as the
+    restoration power flows finish. The scorecard is the same bytes whatever ``workers`` and
+    ``scheduler``. Bad input raises InputError before anything is computed or written.
+    """
+    prof = get_profile(profile)
+    if isinstance(workers, bool) or not isinstance(workers, (int, np.integer)) or workers < 1:
+        raise InputError(f"The 'workers' parameter of score must be an integer >= 1. Got {workers!r} instead.",
+                         where="workers")
+    preds, split = _resolve(predictions, split)
+    sid = np.asarray(split.sample_id)
+    order = np.argsort(sid, kind="stable")
+    sid = sid[order]
+    pos = {v: i for i, v in enumerate(np.asarray(preds.sample_id).tolist())}
+    take = np.fromiter((pos[v] for v in sid.tolist()), dtype=np.int64, count=sid.size)
+
+    def pick(a):
+        return None if a is None else np.asarray(a, float)[take]
+
+    aggregates, table = score_arrays(
+        split.network, sample_id=sid, pd_mw=np.asarray(split.pd_mw, float)[order],
+        qd_mvar=np.asarray(split.qd_mvar, float)[order],
+        reference_cost_per_h=np.asarray(split.references.objective, float)[order],
+        pg_mw=pick(preds.pg_mw), vm_pu=pick(preds.vm_pu), va_deg=pick(preds.va_deg), qg_mvar=pick(preds.qg_mvar),
+        inference_ms=pick(preds.inference_ms), reference_solve_ms=_reference_ms(split), profile=prof,
+        workers=workers, scheduler=scheduler, progress=progress)
     return Scorecard(header=_header(split, preds, prof), aggregates=aggregates, per_sample=table)
