@@ -119,8 +119,10 @@ def _check_values(net: Network, source: str) -> None:
 def _check_costs(net: Network, source: str) -> None:
     present = np.column_stack([np.isfinite(getattr(net, c)) for c in _COSTS]) if net.n_gen else np.zeros((0, 3), bool)
     partial = present.any(axis=1) & ~present.all(axis=1)
-    _fail(net, source, "generator", partial, "cost_c2_per_mw2h",
-          "some cost coefficients given and others null (give all three, or none)")
+    if partial.any():
+        missing = _COSTS[int(np.argmin(present[np.flatnonzero(partial)[0]]))]
+        _fail(net, source, "generator", partial, missing,
+              "cost coefficient is null while others are given (give all three, or none)")
     if present.any() and not present.all():
         _fail(net, source, "generator", ~present[:, 0], "cost_c1_per_mwh",
               "no costs for this generator, but other generators have costs (give costs for all or none)")

@@ -127,9 +127,11 @@ def _schema_message(err) -> str:
     if kind == "additionalProperties":
         extra = sorted(set(inst) - set(err.schema.get("properties", {})))
         return f"unknown field(s) {', '.join(repr(k) for k in extra)} (see docs/network-format.md)"
-    if kind in ("enum", "const"):
-        allowed = err.validator_value if kind == "enum" else [err.validator_value]
-        return f"expected one of {', '.join(json.dumps(a) for a in allowed)}, got {json.dumps(inst)[:60]}"
+    if kind == "enum":
+        allowed = ", ".join(json.dumps(a) for a in err.validator_value)
+        return f"expected one of {allowed}, got {json.dumps(inst)[:60]}"
+    if kind == "const":
+        return f"expected {json.dumps(err.validator_value)}, got {json.dumps(inst)[:60]}"
     if kind in ("minimum", "exclusiveMinimum"):
         op = ">=" if kind == "minimum" else ">"
         return f"expected a number {op} {err.validator_value}, got {json.dumps(inst)}"
