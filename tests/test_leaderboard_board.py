@@ -238,3 +238,12 @@ def test_bad_input_is_one_message(board, capsys, change, code, message):
     err = capsys.readouterr().err
     assert message in err and "Traceback" not in err and err.count("\n") == 1
     assert _tables(board) == before  # nothing half-written
+
+
+def test_missing_split_names_the_submission(board, tmp_path, monkeypatch, capsys):
+    monkeypatch.setenv("FLOWGAUGE_SPLITS", str(tmp_path / "no-splits"))
+    assert main(["rank", str(board)]) == 2
+    err = capsys.readouterr().err
+    assert re.match(r"Error: submissions/ieee14/test-id/linear.json: its split ieee14/test-id is "
+                    r"not among the frozen splits \(no split with this split_hash under .*no-splits\)",
+                    err), err

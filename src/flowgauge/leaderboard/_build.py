@@ -60,6 +60,10 @@ def build_board(board: str | Path, *, verify: bool = False, workers: int = 1) ->
         if did:
             rescored.append(sub.scorecard.relative_to(board).as_posix())
     entries, records, notes, splits_used = _group(board, rules, cards)
+    if verify:
+        from ..splits import verify_split
+        for split in splits_used:  # recompute every hash the split's manifest records
+            verify_split(split["folder"])
     notes = check_commitments(board, rules, splits_used) + notes + _orphans(board, subs)
     tables = tuple(t for network in _network_order(entries)
                    for t in _network_tables(network, entries[network], rules))
@@ -85,7 +89,7 @@ def _profile_hash(rules: Rules) -> str:
 def _scorecard(board: Path, sub: Submission, rules: Rules, profile_hash: str, verify: bool,
                workers: int) -> tuple[Submission, dict, bool]:
     """The submission (header read) and its scorecard, rescored when missing or stale."""
-    from ..scoring import read_scorecard, score
+    from ..scoring import read_scorecard
     card_rel = sub.scorecard.relative_to(board).as_posix()
     if sub.file is None:
         return _listed_only(board, sub, card_rel, verify)
@@ -103,7 +107,7 @@ def _scorecard(board: Path, sub: Submission, rules: Rules, profile_hash: str, ve
         if reason is not None:
             raise IntegrityError(f"scorecard of {sub.shown_path} does not match it: {reason}",
                                  where=card_rel)
-        fresh = score(sub.file, profile=rules.profile, workers=workers).to_dict()
+        fresh = _score(sub, rules, workers).to_dict()
         if fresh["scorecard_hash"] != card["scorecard_hash"]:
             raise IntegrityError(
                 f"rescoring {sub.shown_path} gives scorecard hash {fresh['scorecard_hash']}, "
@@ -111,8 +115,20 @@ def _scorecard(board: Path, sub: Submission, rules: Rules, profile_hash: str, ve
         return sub, card, False
     if reason is None:
         return sub, card, False
-    score(sub.file, profile=rules.profile, workers=workers).write(sub.scorecard)
+    _score(sub, rules, workers).write(sub.scorecard)
     return sub, read_scorecard(sub.scorecard), True
+
+
+def _score(sub: Submission, rules: Rules, workers: int):
+    """Score one submission; a user error names the submission it came from."""
+    from ..scoring import score
+    try:
+        return score(sub.file, profile=rules.profile, workers=workers)
+    except InputError as exc:
+        if exc.where and sub.shown_path in str(exc.where):
+            raise
+        where = f"{exc.where}: " if exc.where else ""
+        raise InputError(f"{where}{exc.message}", where=sub.shown_path) from None
 
 
 def _listed_only(board: Path, sub: Submission, card_rel: str, verify: bool):
@@ -148,7 +164,11 @@ def _group(board: Path, rules: Rules, cards: dict):
             raise InputError(f"entry {name!r} already has a {network}/{split} submission "
                              f"({owner[key]}); one submission per entry and split", where=shown)
         owner[key] = shown
-        rec = split_record(card["split"]["split_hash"], cache)
+        try:
+            rec = split_record(card["split"]["split_hash"], cache)
+        except InputError as exc:
+            raise InputError(f"its split {network}/{split} is not among the frozen splits "
+                             f"({exc.message})", where=shown) from None
         entries.setdefault(network, {}).setdefault(name, {})[split] = scored(sub, card, board)
         records.append({
             "submission": shown, "network": network, "split": split, "entry": name,
