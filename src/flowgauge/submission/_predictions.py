@@ -149,7 +149,11 @@ def _read_json(data: bytes, path: Path, problems: Problems):
     try:
         doc = json.loads(text)
     except json.JSONDecodeError as exc:
-        ends_early = exc.pos >= len(text.rstrip())
+        body = text.rstrip()
+        # An object ends with "}": an error in the last few characters of a text that does
+        # not is a cut-off file (e.g. "1." or "tru" at the end).
+        ends_early = exc.pos >= len(body) or (0 < exc.pos and exc.pos >= len(body) - 8
+                                              and not body.endswith("}"))
         hint = "the file ends early (truncated?)" if ends_early else exc.msg
         raise InputError(f"not valid JSON: {hint} at line {exc.lineno} column {exc.colno}",
                          where=str(path)) from None
