@@ -139,7 +139,7 @@ def _finish(out: Path, part: Path, net: Network, job: Job, split: str, samples: 
     out.parent.mkdir(parents=True, exist_ok=True)
     os.replace(stage, out)
     shutil.rmtree(part)
-    return manifest
+    return json.loads(canonical_json(manifest))  # as written: floats rounded
 
 
 def build_split(network: str | Path | Network, split: str, *, samples: int, seed: int, out: str | Path,

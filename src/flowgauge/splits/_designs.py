@@ -28,6 +28,7 @@ class Loading:
     pd_mw: np.ndarray
     qd_mvar: np.ndarray
     margin: float = float("nan")
+    kind: str = ""  # which branch of a mixed design drew it (prefixes rejection reasons)
 
 
 def sample_rng(seed: int, slot: int, attempt: int) -> np.random.Generator:
@@ -67,17 +68,18 @@ class Shifted:
     - ``regional``: one graph region heavy, the other light (which one is random);
     - ``power-factor``: a training-range level, but every load's power-factor angle shifted by
       one system-wide angle of random sign.
-    Local factors as in training.
+    Local factors are narrower than in training, so that no draw of the level and local
+    factor ranges of ``LevelLocal`` (defaults) can produce a level or regional loading.
     """
 
     name: str = "shifted"
-    level_low: tuple[float, float] = (0.60, 0.85)
-    level_high: tuple[float, float] = (1.15, 1.35)
+    level_low: tuple[float, float] = (0.55, 0.78)
+    level_high: tuple[float, float] = (1.25, 1.40)
     heavy: tuple[float, float] = (1.15, 1.35)
     light: tuple[float, float] = (0.60, 0.85)
     train_level: tuple[float, float] = (0.85, 1.15)
     angle_shift_rad: tuple[float, float] = (0.10, 0.30)
-    local_factor: tuple[float, float] = (0.95, 1.05)
+    local_factor: tuple[float, float] = (0.97, 1.03)
 
     def parameters(self, net: Network) -> dict[str, Any]:
         p = {k: list(v) for k, v in asdict(self).items() if k != "name"}
@@ -91,19 +93,19 @@ class Shifted:
         pd0, qd0 = net.pd_mw, net.qd_mvar
         if kind in ("level-low", "level-high"):
             scale = _uniform(rng, self.level_low if kind == "level-low" else self.level_high) * local
-            return Loading(pd0 * scale, qd0 * scale)
+            return Loading(pd0 * scale, qd0 * scale, kind=kind)
         if kind == "regional":
             in_a = two_regions(net)[net.load_bus_idx]
             heavy, light = _uniform(rng, self.heavy), _uniform(rng, self.light)
             a_heavy = bool(rng.integers(2))
             scale = np.where(in_a == a_heavy, heavy, light) * local
-            return Loading(pd0 * scale, qd0 * scale)
+            return Loading(pd0 * scale, qd0 * scale, kind=kind)
         level = _uniform(rng, self.train_level)
         shift = _uniform(rng, self.angle_shift_rad) * (1.0 if rng.integers(2) else -1.0)
         pd = pd0 * level * local
         angle = np.clip(np.arctan2(qd0, np.where(pd0 == 0, 1.0, pd0)) + shift, -1.4, 1.4)
         qd = np.where(pd0 > 0, pd * np.tan(angle), qd0 * level * local)
-        return Loading(pd, qd)
+        return Loading(pd, qd, kind=kind)
 
 
 @dataclass(frozen=True)

@@ -40,7 +40,7 @@ def _dask(fn: Callable, tasks: list, address: str) -> Iterator[tuple[Any, Any]]:
         raise InputError("a Dask scheduler needs the optional extra 'cluster' "
                          "(pip install 'flowgauge[cluster]')", where="--scheduler") from None
     try:
-        client = Client(address, timeout="20s", set_as_default=False)
+        client = Client(address, timeout="20s")
     except (OSError, TimeoutError, ValueError) as exc:
         raise InputError(f"cannot reach the Dask scheduler ({exc})", where=address) from None
     try:

@@ -25,7 +25,7 @@ __all__ = ["Job", "ACCEPTANCE", "MAX_ATTEMPTS", "solver_settings", "make_tools",
            "write_chunk", "read_chunk", "reject_reason"]
 
 # A reference is kept only if converged and every residual / violation is at most this.
-ACCEPTANCE = {"max_p_mismatch_mw": 1e-3, "max_q_mismatch_mvar": 1e-3, "max_limit_violation": 1e-4}
+ACCEPTANCE = {"max_p_mismatch_mw": 1e-3, "max_q_mismatch_mvar": 1e-3, "max_limit_violation": 1e-3}
 MAX_ATTEMPTS = 25
 
 
@@ -97,7 +97,7 @@ def _solve_slot(job: Job, tools, slot: int, rejected: Counter) -> tuple[Loading,
         reason = reject_reason(res, job.acceptance)
         if reason is None:
             return loading, res
-        rejected[reason] += 1
+        rejected[f"{loading.kind}: {reason}" if loading.kind else reason] += 1
     counts = ", ".join(f"{k}: {v}" for k, v in sorted(rejected.items()))
     raise InputError(f"{job.max_attempts} draws in a row were rejected for design {job.design.name!r} on "
                      f"network {job.net.name!r} (rejected so far: {counts})", where=f"sample {slot}")

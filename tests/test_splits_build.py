@@ -1,0 +1,162 @@
+"""Building splits: references checked against PYPOWER, resume after an interruption, local
+processes and a Dask cluster give the same hashes, verify / publish / show on the command line."""
+
+import json
+import shutil
+
+import numpy as np
+import pyarrow as pa
+import pyarrow.parquet as pq
+import pytest
+
+from flowgauge.cli import main
+from flowgauge.network import load_network, to_ppc
+from flowgauge.splits import build_split, find_split, load_split, verify_split
+from flowgauge.splits._builder import partial_dir
+
+SEED = 42
+
+
+def _hashes(manifest):
+    f = manifest["files"]
+    return f["inputs"]["hash"], f["references"]["solution_hash"]
+
+
+@pytest.fixture(scope="module")
+def root(tmp_path_factory):
+    return tmp_path_factory.mktemp("splits")
+
+
+@pytest.fixture(scope="module")
+def built(root):
+    out = root / "ieee14" / "test-id"
+    return out, build_split("ieee14", "test-id", samples=8, seed=SEED, out=out, chunk=4)
+
+
+def test_references_agree_with_pypower(built):
+    from pypower.api import ppoption, runopf
+    from pypower.idx_bus import VM
+    from pypower.idx_gen import PG
+    s = load_split(built[0])
+    assert s.pd_mw.shape == (8, 11) and s.references.pg_mw.shape == (8, 5)
+    for i in (0, 5):
+        # reference library: PYPOWER 5.1.21 runopf (MIPS interior point) on the same loading
+        r = runopf(to_ppc(s.network, s.pd_mw[i], s.qd_mvar[i]), ppoption(VERBOSE=0, OUT_ALL=0))
+        assert r["success"]
+        assert s.references.objective[i] == pytest.approx(r["f"], rel=1e-5)
+        np.testing.assert_allclose(s.references.pg_mw[i], r["gen"][:, PG], atol=0.05)
+        np.testing.assert_allclose(s.references.vm_pu[i], r["bus"][:, VM], atol=1e-3)
+
+
+def test_manifest_records_what_was_built(built):
+    out, m = built
+    net = load_network("ieee14")
+    assert m["samples"] == 8 and m["seed"] == SEED and m["split"] == "test-id"
+    assert m["design"]["name"] == "level-local"
+    assert m["elements"]["load_id"] == net.load_id.tolist()
+    assert m["draws"] == 8 + sum(m["rejected"].values())
+    assert set(m["solver"]) >= {"feasibility_tol", "max_iter"}
+    assert json.loads((out / "manifest.json").read_text()) == m
+    assert verify_split(out).references_present
+    assert not partial_dir(out).exists()
+
+
+def test_resume_after_interruption_gives_the_same_hashes(built, tmp_path):
+    out = tmp_path / "ieee14" / "test-id"
+    seen = []
+
+    def stop_after_first_chunk(p):
+        seen.append(p)
+        if p.solved >= 4:
+            raise KeyboardInterrupt
+
+    with pytest.raises(KeyboardInterrupt):
+        build_split("ieee14", "test-id", samples=8, seed=SEED, out=out, chunk=4, progress=stop_after_first_chunk)
+    assert not out.exists()  # nothing half-written where the split goes
+    assert len(list((partial_dir(out) / "chunks").glob("*.npz"))) == 1
+    progress = []
+    m = build_split("ieee14", "test-id", samples=8, seed=SEED, out=out, chunk=4, progress=progress.append)
+    assert progress[0].resumed == 4
+    assert _hashes(m) == _hashes(built[1])
+
+
+def test_two_local_workers_give_the_same_hashes(built, tmp_path):
+    m = build_split("ieee14", "test-id", samples=8, seed=SEED, out=tmp_path / "w2", chunk=2, workers=2)
+    assert _hashes(m) == _hashes(built[1])
+
+
+def test_dask_cluster_gives_the_same_hashes(built, tmp_path):
+    distributed = pytest.importorskip("dask.distributed")
+    with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True, host="127.0.0.1",
+                                  dashboard_address=None) as cluster:
+        m = build_split("ieee14", "test-id", samples=8, seed=SEED, out=tmp_path / "dask", chunk=3,
+                        scheduler=cluster.scheduler_address)
+    assert _hashes(m) == _hashes(built[1])
+
+
+def _rewrite_value(path, column, row, col, delta):
+    t = pq.read_table(path)
+    arr = t.column(column).combine_chunks()
+    m = arr.flatten().to_numpy().reshape(len(arr), -1).copy()
+    m[row, col] += delta
+    new = pa.FixedSizeListArray.from_arrays(pa.array(m.ravel()), m.shape[1])
+    pq.write_table(t.set_column(t.column_names.index(column), column, new), path)
+
+
+def test_verify_catches_one_changed_value(built, tmp_path, capsys):
+    copy = tmp_path / "copy"
+    shutil.copytree(built[0], copy)
+    assert main(["splits", "verify", str(copy)]) == 0
+    _rewrite_value(copy / "references.parquet", "pg_mw", 3, 1, 1e-4)
+    capsys.readouterr()
+    assert main(["splits", "verify", str(copy)]) == 3
+    err = capsys.readouterr().err
+    assert "references.parquet: column pg_mw differs from the manifest" in err
+
+
+def test_verify_catches_a_changed_manifest(built, tmp_path, capsys):
+    copy = tmp_path / "copy"
+    shutil.copytree(built[0], copy)
+    text = (copy / "manifest.json").read_text().replace(f'"seed": {SEED}', '"seed": 43')
+    (copy / "manifest.json").write_text(text)
+    assert main(["splits", "verify", str(copy)]) == 3
+    assert "manifest.json: split_hash recorded" in capsys.readouterr().err
+
+
+def test_publish_withholds_references_but_commits_to_them(built, tmp_path, capsys):
+    pub = tmp_path / "pub"
+    assert main(["splits", "publish", str(built[0]), "--out", str(pub)]) == 0
+    assert sorted(p.name for p in pub.iterdir()) == ["inputs.parquet", "manifest.json"]
+    assert (pub / "manifest.json").read_bytes() == (built[0] / "manifest.json").read_bytes()
+    assert main(["splits", "verify", str(pub)]) == 0
+    assert "references withheld" in capsys.readouterr().out
+    s = load_split(pub)
+    assert not s.has_references and s.split_hash == built[1]["split_hash"]
+
+
+def test_find_and_show_frozen_splits(built, root, monkeypatch, capsys):
+    monkeypatch.setenv("FLOWGAUGE_SPLITS", str(root))
+    assert find_split(built[1]["split_hash"]) == built[0]
+    assert load_split("ieee14", "test-id").n_samples == 8
+    assert main(["splits", "show", "ieee14"]) == 0
+    out = capsys.readouterr().out
+    assert "test-id" in out and "level" not in out
+
+
+@pytest.mark.parametrize("args, message", [
+    (["--workers", "0"], "Invalid value for '--workers': 0 is not in the range x>=1"),
+    (["--split", "val"], "Invalid value for '--split'"),
+])
+def test_build_rejects_bad_options(tmp_path, capsys, args, message):
+    base = ["splits", "build", "ieee14", "--split", "test-id", "--samples", "2", "--seed", "1",
+            "--out", str(tmp_path / "x")]
+    assert main(base + args) == 2
+    assert message in capsys.readouterr().err
+
+
+def test_build_refuses_a_finished_split_and_unknown_network(built, tmp_path, capsys):
+    args = ["--split", "test-id", "--samples", "2", "--seed", "1", "--quiet"]
+    assert main(["splits", "build", "ieee14", *args, "--out", str(built[0])]) == 2
+    assert "already holds a finished split" in capsys.readouterr().err
+    assert main(["splits", "build", "nowhere", *args, "--out", str(tmp_path / "y")]) == 2
+    assert "nowhere: not a bundled network and no such file" in capsys.readouterr().err
