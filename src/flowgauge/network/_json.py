@@ -135,6 +135,8 @@ def _schema_message(err) -> str:
     if kind in ("minimum", "exclusiveMinimum"):
         op = ">=" if kind == "minimum" else ">"
         return f"expected a number {op} {err.validator_value}, got {json.dumps(inst)}"
+    if kind == "minItems":
+        return f"expected at least {err.validator_value} element(s), got {len(inst)}"
     return err.message
 
 
