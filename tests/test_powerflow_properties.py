@@ -54,7 +54,7 @@ def test_every_bus_balances_after_convergence(kind, seed):
 
 @_slow
 @given(kind=_kinds, seed=st.integers(0, 10_000), init=st.sampled_from(["flat", "dc"]),
-       linear=st.sampled_from(["block", "loop"]))
+       linear=st.sampled_from(["stacked", "block", "loop"]))
 def test_batched_and_single_solves_agree(kind, seed, init, linear):
     # property: the batched solve gives the single solves' numbers and iteration counts
     net = _network(kind, seed)

@@ -10,7 +10,7 @@ import numpy as np
 from ..errors import InputError
 from ..network._model import Network
 from ._dc import dc_angles, reference_pg
-from ._newton import newton
+from ._newton import LINEAR_SOLVERS, newton
 from ._prepare import Prepared, bus_injection_setpoints, prepared, stack_input
 from ._result import BatchPowerFlowResult, PowerFlowResult
 from ._status import CONVERGED, STATUSES
@@ -105,7 +105,7 @@ def _run(p, pv, pq, vm0, va0, pg, qg, pd, qd, tol, max_iter, linear):
 
 def solve_powerflow_batch(net: Network, *, pd_mw, qd_mvar, pg_mw=None, vm_pu=None, va_deg=None,
                           init: str = "flat", tol: float = 1e-8, max_iter: int = 20,
-                          linear: str = "block") -> BatchPowerFlowResult:
+                          linear: str = "stacked") -> BatchPowerFlowResult:
     """AC power flows of many samples of one network (Newton-Raphson, polar coordinates).
 
     ``pd_mw``, ``qd_mvar``: loads, shape (n_samples, n_load) [MW], [MVAr].
@@ -117,11 +117,14 @@ def solve_powerflow_batch(net: Network, *, pd_mw, qd_mvar, pg_mw=None, vm_pu=Non
     ``init``: "flat" (every bus at its island's reference angle), "dc" (angles of the DC power
     flow of the specified injections) or "given". Converged when the largest absolute
     mismatch is below ``tol`` [p.u.] within ``max_iter`` Newton steps; no fallback, no clipping.
-    Gives the same numbers as :func:`solve_powerflow` sample by sample. Returns a
+    Gives the same numbers as :func:`solve_powerflow` sample by sample. ``linear``: how the
+    Newton steps are solved, a key of ``LINEAR_SOLVERS`` (see docs/powerflow.md). Returns a
     :class:`BatchPowerFlowResult`; failure is data (``status``), never an exception.
     """
     t0 = time.perf_counter()
     _check_options(init, tol, max_iter, va_deg)
+    if linear not in LINEAR_SOLVERS:
+        raise InputError(f"must be one of {list(LINEAR_SOLVERS)}, got {linear!r}", where="linear")
     n_s = int(np.shape(pd_mw)[0]) if np.ndim(pd_mw) == 2 else -1
     if n_s < 0:
         raise InputError(f"expected shape (n_samples, {net.n_load}), got {np.shape(pd_mw)}", where="pd_mw")

@@ -4,24 +4,41 @@ All samples share the Jacobian's sparsity pattern; each iteration evaluates the 
 and the Jacobian values of every active sample in one numpy operation, then solves the
 Newton steps with sparse LU. Samples leave the active set as soon as they converge, fail or
 diverge. The step solve either factorises the block-diagonal matrix of all active samples at
-once ("block") or loops over the samples around one factorisation each ("loop");
+once ("block"), loops over the samples around one SuperLU factorisation each ("loop"), or
+uses the LU vectorised across samples of ``_stacked_lu`` ("stacked");
 ``benchmarks/powerflow.py`` measures both (docs/powerflow.md records the choice).
 """
 
 from __future__ import annotations
 
 import warnings
+import weakref
 
 import numpy as np
 import scipy.sparse as sp
 import scipy.sparse.linalg as spla
 
 from ..physics import JacobianPattern
+from ._stacked_lu import StackedLU
 from ._status import CONVERGED, DIVERGED, MAX_ITERATIONS, SINGULAR_JACOBIAN, STATUS_NAMES
 
 __all__ = ["newton", "LINEAR_SOLVERS"]
 
 _CODE = {name: i for i, name in enumerate(STATUS_NAMES)}
+
+
+_LU_CACHE: "weakref.WeakKeyDictionary[JacobianPattern, StackedLU | None]" = weakref.WeakKeyDictionary()
+
+
+def stacked_lu(pat: JacobianPattern) -> StackedLU | None:
+    """The pattern's :class:`StackedLU`, built on first use (None if the pattern does not allow
+    diagonal pivots)."""
+    if pat not in _LU_CACHE:
+        try:
+            _LU_CACHE[pat] = StackedLU(pat)
+        except RuntimeError:
+            _LU_CACHE[pat] = None
+    return _LU_CACHE[pat]
 
 
 def _solve_loop(pat: JacobianPattern, data: np.ndarray, f: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -47,7 +64,21 @@ def _solve_block(pat: JacobianPattern, data: np.ndarray, f: np.ndarray) -> tuple
     return lu.solve(f.ravel()).reshape(f.shape), np.zeros(f.shape[0], bool)
 
 
-LINEAR_SOLVERS = {"block": _solve_block, "loop": _solve_loop}
+def _solve_stacked(pat: JacobianPattern, data: np.ndarray, f: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Newton steps from the LU vectorised across samples; samples failing its residual check
+    (tiny static pivots) are solved again with SuperLU's partial pivoting."""
+    lu = stacked_lu(pat)
+    if lu is None:
+        return _solve_block(pat, data, f)
+    dx, ok = lu.solve(data, f)
+    singular = np.zeros(f.shape[0], bool)
+    if not ok.all():
+        redo = np.flatnonzero(~ok)
+        dx[redo], singular[redo] = _solve_loop(pat, data[redo], f[redo])
+    return dx, singular
+
+
+LINEAR_SOLVERS = {"stacked": _solve_stacked, "block": _solve_block, "loop": _solve_loop}
 
 
 def _mismatch(ybus: sp.csr_matrix, vm, e, sbus, pvpq, pq):
@@ -59,7 +90,7 @@ def _mismatch(ybus: sp.csr_matrix, vm, e, sbus, pvpq, pq):
 
 
 def newton(pat: JacobianPattern, ybus: sp.csr_matrix, vm: np.ndarray, va: np.ndarray,
-           sbus: np.ndarray, tol: float, max_iter: int, linear: str = "block"):
+           sbus: np.ndarray, tol: float, max_iter: int, linear: str = "stacked"):
     """Solve the power flows of all samples.
 
     ``vm`` [p.u.], ``va`` [rad]: start values, shape (S, n_bus), fixed at PV (vm) and
