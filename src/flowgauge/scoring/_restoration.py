@@ -27,6 +27,7 @@ from ._profile import ScoringProfile
 __all__ = ["CAUSES", "CHUNK_SAMPLES", "Restoration", "restore", "solve_restoration_chunk"]
 
 CHUNK_SAMPLES = 64
+SCHEDULER_TIMEOUT_S = 10  # seconds to wait for a Dask scheduler to answer
 
 # The one table of restoration failure causes: name -> what it means. Several may apply.
 CAUSES: dict[str, str] = {
@@ -108,7 +109,7 @@ def _run_chunks(net, arrays, powerflow, workers, scheduler, progress) -> list[di
         except ImportError as exc:  # pragma: no cover - depends on the installed extras
             raise InputError("needs Dask: pip install 'flowgauge[cluster]'", where="--scheduler") from exc
         try:
-            client = Client(scheduler, timeout=10, set_as_default=False)
+            client = Client(scheduler, timeout=SCHEDULER_TIMEOUT_S, set_as_default=False)
         except (OSError, TimeoutError, ValueError) as exc:
             raise InputError(f"cannot connect to a Dask scheduler ({exc})", where=f"--scheduler {scheduler}") from exc
         try:

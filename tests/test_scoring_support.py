@@ -1,0 +1,46 @@
+"""Small splits built once per test session for the scoring, baseline and demo tests (frozen
+splits are too large for quick tests). Holds no tests itself."""
+
+import atexit
+import functools
+import shutil
+import tempfile
+from pathlib import Path
+
+from flowgauge.splits import build_split, load_split
+from flowgauge.submission import write_predictions
+
+MODEL = {"name": "test model", "authors": ["flowgauge tests"], "description": "made in a test",
+         "training_data_only": True}
+SIZES = {"train": 130, "test-id": 20, "test-ood": 20}
+
+
+@functools.lru_cache(maxsize=None)
+def _root() -> Path:
+    root = Path(tempfile.mkdtemp(prefix="flowgauge-scoring-tests-"))
+    atexit.register(shutil.rmtree, root, True)
+    return root
+
+
+def split_path(network: str, split: str, samples: int | None = None) -> Path:
+    """Folder of a small split ``<root>/<network>/<split>`` built on first use (seed 5)."""
+    return _built(network, split, samples or SIZES[split])
+
+
+@functools.lru_cache(maxsize=None)
+def _built(network: str, split: str, samples: int) -> Path:
+    out = _root() / network / split
+    build_split(network, split, samples=samples, seed=5, out=out)
+    return out
+
+
+def split(network: str, name: str, samples: int | None = None):
+    return load_split(split_path(network, name, samples))
+
+
+def write_reference(sp, path: Path, *, full: bool = True, format: str | None = None) -> Path:
+    """The split's reference solutions written as a predictions file."""
+    r = sp.references
+    write_predictions(sp, pg_mw=r.pg_mw, vm_pu=r.vm_pu, va_deg=r.va_deg if full else None,
+                      qg_mvar=r.qg_mvar if full else None, model=MODEL, path=path, format=format)
+    return path
