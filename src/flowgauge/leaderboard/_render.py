@@ -69,7 +69,11 @@ def _env() -> jinja2.Environment:
 
 
 def _fmt(v: float | None, digits: int) -> str:
-    return "" if v is None or (isinstance(v, float) and math.isnan(v)) else f"{v:.{digits}f}"
+    """Fixed digits for people; empty when missing; no "-0.000"."""
+    if v is None or (isinstance(v, float) and math.isnan(v)):
+        return ""
+    text = f"{v:.{digits}f}"
+    return text[1:] if text.startswith("-") and not text.strip("-0.") else text
 
 
 def _num(v) -> str:
@@ -148,16 +152,21 @@ def _details(network: str, entries: dict, rules: Rules, records: list[dict]) -> 
                 "violations": [(f, _fmt(v.get("share"), 4), _fmt(v.get("mean"), 4),
                                 _fmt(v.get("max"), 4))
                                for f, v in sorted((a.get("violations") or {}).items())],
-                "inference_ms": (a.get("inference_ms") or {}),
-                "speedup": a.get("speedup_indicative"),
+                "inference_ms": {k: _fmt(v, 3) for k, v in (a.get("inference_ms") or {}).items()},
+                "speedup": _fmt(a.get("speedup_indicative"), 1) or None,
                 "record": rec,
             })
+        families = sorted({f for s in per_split for f, *_ in s["violations"]})
+        violation_rows = [
+            (f, [next((v[1:] for v in s["violations"] if v[0] == f), ("", "", ""))
+                 for s in per_split])
+            for f in families]
         model = entries[name][next(iter(entries[name]))].card.get("model") or {}
         link = model.get("link") or ""
         out.append({"name": name, "id": _slug(f"{network}-{name}"), "model": model,
                     "authors": _authors(model.get("authors")),
                     "link": link if re.match(r"https?://", str(link)) else "",
-                    "splits": per_split})
+                    "splits": per_split, "violation_rows": violation_rows})
     return out
 
 
