@@ -49,6 +49,28 @@ def _pypower_rate(folder: Path) -> float:
     return s.n_samples / (time.perf_counter() - t0)
 
 
+def _load_times(repeats: int = 5) -> dict | None:
+    """Median seconds to load the largest frozen split, against pandas reading the same files."""
+    import pandas as pd
+    from flowgauge.splits import list_splits
+    frozen = list_splits()
+    if not frozen:
+        return None
+    biggest = max(frozen, key=lambda p: sum(f.stat().st_size for f in p.glob("*.parquet")))
+    ours, ref = [], []
+    for _ in range(repeats):
+        t0 = time.perf_counter()
+        load_split(biggest)
+        ours.append(time.perf_counter() - t0)
+        t0 = time.perf_counter()
+        pd.read_parquet(biggest / "inputs.parquet")
+        pd.read_parquet(biggest / "references.parquet")
+        ref.append(time.perf_counter() - t0)
+    return {"split": f"{biggest.parent.name}/{biggest.name}", "load_split_seconds": statistics.median(ours),
+            "pandas_read_parquet_seconds": statistics.median(ref),
+            "ratio_to_pandas": statistics.median(ours) / statistics.median(ref)}
+
+
 def main(argv: list[str] | None = None) -> int:
     ap = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
     ap.add_argument("--quick", action="store_true")
@@ -77,7 +99,11 @@ def main(argv: list[str] | None = None) -> int:
                 print(f"{network:8s} {split:9s} {row['samples_per_s_1_worker']:8.2f}/s 1w "
                       f"{row['samples_per_s_2_workers']:8.2f}/s 2w  pypower {row['pypower_runopf_per_s']:7.2f}/s "
                       f"ratio {row['ratio_to_pypower_1_worker']:.2f}", flush=True)
-    result = {"benchmark": "splits", "flowgauge_version": __version__, "quick": args.quick,
+    loading = _load_times()
+    if loading:
+        print(f"load {loading['split']}: {loading['load_split_seconds']:.3f} s "
+              f"(pandas read_parquet {loading['pandas_read_parquet_seconds']:.3f} s)", flush=True)
+    result = {"benchmark": "splits", "load_largest_frozen_split": loading, "flowgauge_version": __version__, "quick": args.quick,
               "repeats": args.repeats, "cpu_count": os.cpu_count(), "python": platform.python_version(),
               "load_average_1min": os.getloadavg()[0], "numpy": np.__version__, "rows": rows,
               "note": "samples/s counts kept samples; the time of rejected draws is included. "

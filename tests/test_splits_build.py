@@ -160,3 +160,31 @@ def test_build_refuses_a_finished_split_and_unknown_network(built, tmp_path, cap
     assert "already holds a finished split" in capsys.readouterr().err
     assert main(["splits", "build", "nowhere", *args, "--out", str(tmp_path / "y")]) == 2
     assert "nowhere: not a bundled network and no such file" in capsys.readouterr().err
+
+
+def test_out_of_distribution_build_counts_rejections_by_kind(tmp_path):
+    m = build_split("ieee30", "test-ood", samples=6, seed=3, out=tmp_path / "ood", chunk=3)
+    kinds = ("level-low", "level-high", "regional", "power-factor")
+    # PYPOWER's case30 cannot carry 1.25-1.40 times its base load (checked with runopf while
+    # designing): the high-level kind is rejected and counted, never dropped silently
+    assert all(k.split(": ")[0] in kinds for k in m["rejected"])
+    assert m["draws"] == 6 + sum(m["rejected"].values())
+    assert m["design"]["parameters"]["region_a_bus_id"]
+
+
+def test_edge_build_records_margins_and_binding_limits(tmp_path):
+    m = build_split("ieee14", "test-edge", samples=3, seed=5, out=tmp_path / "edge", chunk=3)
+    s = load_split(tmp_path / "edge")
+    assert np.all((s.references.margin >= 0.002) & (s.references.margin <= 0.03))
+    assert min(len(b) for b in s.references.binding) >= 1
+    assert m["design"]["name"] == "edge"
+
+
+def test_a_network_file_is_stored_with_its_split(tmp_path):
+    from flowgauge.network import write_network_json
+    net = load_network("ieee14").replace(name="island-north")
+    write_network_json(net, tmp_path / "north.json")
+    build_split(tmp_path / "north.json", "test-id", samples=2, seed=1, out=tmp_path / "s", chunk=2)
+    assert (tmp_path / "s" / "network.json").exists()
+    s = load_split(tmp_path / "s")
+    assert s.network.name == "island-north" and verify_split(tmp_path / "s").samples == 2

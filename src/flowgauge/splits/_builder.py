@@ -14,16 +14,15 @@ from typing import Any, Callable
 import numpy as np
 
 from .. import __version__
-from .._io import atomic_write_bytes, canonical_json, sha256_hex
+from .._io import atomic_write_bytes, canonical_json, hash_arrays
 from ..errors import InputError
 from ..network import Network, bundled_names, load_network, write_network_json
 from ._designs import design_for
 from ._executors import run_tasks
 from ._manifest import FORMAT_NAME, FORMAT_VERSION, SPLIT_NAMES, network_hash, seal_manifest, write_manifest
 from ._store import (BINDING_SEP, INPUTS_FILE, MANIFEST_FILE, REFERENCES_FILE, inputs_table,
-                     references_table, columns_hash, solution_hash, table_columns, write_table)
+                     references_table, solution_hash, table_columns, write_table)
 from ._worker import ACCEPTANCE, MAX_ATTEMPTS, Job, read_chunk, solve_chunk, solver_settings, write_chunk
-from .._io import hash_arrays
 
 __all__ = ["BuildProgress", "build_split", "partial_dir", "DEFAULT_CHUNK"]
 

@@ -7,7 +7,7 @@ A draw returns :class:`Loading` or a rejection reason (str); rejected draws are 
 
 from __future__ import annotations
 
-from dataclasses import asdict, dataclass, field
+from dataclasses import asdict, dataclass
 from typing import Any, Callable
 
 import numpy as np

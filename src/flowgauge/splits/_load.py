@@ -15,7 +15,7 @@ from ..errors import InputError
 from ..network import Network, load_network
 from ..network import bundled_names
 from ._manifest import SPLIT_NAMES, network_hash, read_manifest
-from ._store import (INPUTS_FILE, MANIFEST_FILE, REFERENCES_FILE, References, inputs_from_table,
+from ._store import (MANIFEST_FILE, References, inputs_from_table,
                      read_table, references_from_table)
 
 __all__ = ["Split", "splits_root", "list_splits", "find_split", "resolve_split", "load_split",
