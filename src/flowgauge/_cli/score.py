@@ -50,6 +50,27 @@ def _summary_table(card) -> Table:
     return t
 
 
+class _LazyProgress:
+    """A rich progress bar that appears with the first restoration chunk, so a file rejected
+    by validation prints only its error message."""
+
+    def __init__(self):
+        self._bar = None
+        self._task = None
+
+    def __call__(self, done: int, total: int) -> None:
+        if self._bar is None:
+            self._bar = Progress(TextColumn("restoration power flows"), BarColumn(), MofNCompleteColumn(),
+                                 TimeElapsedColumn(), console=err_console, transient=True)
+            self._bar.start()
+            self._task = self._bar.add_task("restore", total=total)
+        self._bar.update(self._task, completed=done, total=total)
+
+    def stop(self) -> None:
+        if self._bar is not None:
+            self._bar.stop()
+
+
 @click.command()
 @click.argument("file", type=click.Path(dir_okay=False, path_type=Path))
 @click.option("--split", "split_path", type=click.Path(path_type=Path), default=None,
@@ -68,16 +89,17 @@ def score(file: Path, split_path, out, per_sample, workers: int, scheduler, prof
     from ..scoring import score as score_predictions
 
     out = out if out is not None else file.with_name(file.name.split(".")[0] + ".scorecard.json")
-    with Progress(TextColumn("restoration power flows"), BarColumn(), MofNCompleteColumn(),
-                  TimeElapsedColumn(), console=err_console, transient=True) as bar:
-        task = bar.add_task("restore", total=None)
+    bar = _LazyProgress()
+    try:
         card = score_predictions(file, split_path, profile=profile, workers=workers, scheduler=scheduler,
-                                 progress=lambda done, total: bar.update(task, completed=done, total=total))
+                                 progress=bar)
+    finally:
+        bar.stop()
     card.write(out)
     if per_sample is not None:
         card.write_per_sample(per_sample)
     console.print(_summary_table(card))
-    console.print(f"scorecard {out} (hash {card.scorecard_hash[:16]}...)")
+    console.print(f"scorecard {out} (hash {card.scorecard_hash[:16]}...)", soft_wrap=True)
 
 
 @click.command()
