@@ -285,11 +285,27 @@ def test_parquet_layout_as_pyarrow_reads_it(split, tmp_path):
 def test_round_sig_matches_python_formatting():
     # Outside reference: Python's float formatting (correctly rounded, ties to even).
     rng = np.random.Generator(np.random.PCG64(3))
-    values = np.concatenate([rng.normal(0, 1e3, 500), 10.0 ** rng.uniform(-300, 300, 200),
-                             [1234567890.5, 1234567891.5, -0.0, 0.0, 5e-324, 1.7976931348623157e308]])
-    expected = np.array([float(f"{v:.9e}") + 0.0 for v in values])
+    values = np.concatenate([
+        rng.normal(0, 1e3, 5000), 10.0 ** rng.uniform(-320, 308, 2000),
+        rng.integers(-10**12, 10**12, 2000) / 100.0,  # many exact ties at the 11th digit
+        [1234567890.5, 1234567891.5, 9.9999999995, 9.99999999949, 99999999995.0, 1e22, 1e-12, 0.1,
+         -0.0, 0.0, 5e-324, 1.7976931348623157e308]])
+    expected = np.array([float(f"{v:.9e}") + 0.0 for v in values.tolist()])
     np.testing.assert_array_equal(round_sig_array(values), expected)
     assert np.signbit(round_sig_array(np.array([-0.0]))).tolist() == [False]
+
+
+def test_json_lines_are_canonical_json(split, tmp_path):
+    # Outside reference: the standard json module's own encoding with sorted keys, applied to
+    # the numbers rounded by Python's formatting to 10 significant digits.
+    a = make_arrays(split)
+    write_predictions(split, **a, model=MODEL, path=tmp_path / "p.json")
+    lines = (tmp_path / "p.json").read_text().splitlines()
+    assert len(lines) == N_SAMPLES + 2
+    for k, line in enumerate(lines[1:-1]):
+        sample = {f: [float(f"{v:.9e}") + 0.0 for v in a[f][k].tolist()] for f in a}
+        sample["sample_id"] = 100 + 3 * k
+        assert line.rstrip(",") == json.dumps(sample, sort_keys=True, separators=(",", ":"))
 
 
 def test_hash_ignores_sample_order_and_whitespace(valid_doc, tmp_path):
@@ -584,3 +600,16 @@ def test_write_refuses_invalid_values_and_leaves_the_old_file(split, tmp_path):
     assert path.read_bytes() == before
     assert sorted(p.name for p in tmp_path.iterdir()) == ["p.json"]  # no temporary file left
 
+
+
+def test_documented_example_is_valid(tmp_path):
+    """The minimal complete example in docs/submission.md passes jsonschema (outside reference)
+    and flowgauge's own reading; the demo network (bundled) has 9 generators and 28 buses."""
+    text = (Path(__file__).resolve().parents[1] / "docs" / "submission.md").read_text()
+    block = re.search(r"```json\n(.*?)```", text, re.S).group(1)
+    doc = json.loads(block)
+    assert list(jsonschema.Draft202012Validator(predictions_schema()).iter_errors(doc)) == []
+    (tmp_path / "example.json").write_text(block)
+    pred = load_predictions(tmp_path / "example.json")
+    net = load_network("demo")
+    assert pred.pg_mw.shape == (1, net.n_gen) == (1, 9) and pred.vm_pu.shape == (1, net.n_bus) == (1, 28)

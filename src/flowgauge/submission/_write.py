@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import json
 import os
 from pathlib import Path
 
@@ -17,11 +18,37 @@ __all__ = ["write_predictions", "round_sig_array"]
 _FORMATS = ("json", "parquet")
 
 
-def round_sig_array(a: np.ndarray, digits: int = 10) -> np.ndarray:
-    """Round every value to ``digits`` significant digits, exactly as canonical JSON does
-    (correctly rounded decimal, -0.0 becomes 0.0), so JSON and Parquet hold the same numbers."""
+def round_sig_array(a, digits: int = 10) -> np.ndarray:
+    """Round every value to ``digits`` significant digits exactly as canonical JSON does
+    (the double nearest the correctly rounded decimal; -0.0 becomes 0.0), vectorised.
+
+    With ``k = digits - 1 - floor(log10|x|)``, the integer ``N = round(x * 10**k)`` is exact
+    and ``N / 10**k`` is correctly rounded when ``10**|k|`` is exact (``|k| <= 22``). Values
+    outside that range, near a rounding tie, or where ``log10`` misjudged the digit count
+    are rounded through their decimal text instead.
+    """
     a = np.asarray(a, dtype=np.float64)
-    return np.char.mod(f"%.{digits - 1}e", a).astype(np.float64) + 0.0
+    flat = a.ravel()
+    out = np.zeros_like(flat)
+    ax = np.abs(flat)
+    nonzero = np.isfinite(flat) & (ax > 0)
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+        k = digits - 1 - np.floor(np.log10(np.where(nonzero, ax, 1.0)))
+        k = np.clip(k, -22, 22)
+        pos = k >= 0
+        p10 = 10.0 ** np.abs(k)
+        scaled = np.where(pos, flat * p10, flat / p10)
+        n = np.round(scaled)
+        out = np.where(pos, n / p10, n * p10)
+        near_tie = np.abs(np.abs(scaled - np.trunc(scaled)) - 0.5) < 1e-4
+        exact_range = (ax >= 1e-12) & (ax < 1e22)
+        digits_ok = (np.abs(n) >= 10.0 ** (digits - 1)) & (np.abs(n) <= 10.0 ** digits)
+    slow = nonzero & ~(exact_range & digits_ok & ~near_tie)
+    out = np.where(nonzero, out, flat)
+    if slow.any():
+        fmt = f"{{:.{digits - 1}e}}".format
+        out[slow] = np.array(list(map(float, map(fmt, flat[slow].tolist()))), dtype=np.float64)
+    return (out + 0.0).reshape(a.shape)
 
 
 def write_predictions(split, *, pg_mw, vm_pu, va_deg=None, qg_mvar=None, inference_ms=None,
@@ -125,16 +152,21 @@ def _inference_ms(value, n_s: int) -> np.ndarray:
 
 
 def _json_bytes(header: dict, ids: np.ndarray, arrays: dict, ms: np.ndarray) -> bytes:
-    """Canonical JSON (sorted keys, 10 significant digits), one sample per line."""
+    """Canonical JSON (sorted keys, 10 significant digits), one sample per line.
+
+    The arrays are already rounded (``round_sig_array``), so the standard encoder's shortest
+    float text is what ``canonical_json`` would write; it is used for speed."""
     given = {k: v.tolist() for k, v in arrays.items() if v is not None}
     ids_l, ms_l = ids.tolist(), ms.tolist()
+    dumps = json.JSONEncoder(sort_keys=True, separators=(",", ":"), allow_nan=False).encode
     lines = []
     for k, sid in enumerate(ids_l):
         sample = {name: rows[k] for name, rows in given.items()}
         sample["sample_id"] = sid
         if ms_l[k] == ms_l[k]:  # not NaN
             sample["inference_ms"] = ms_l[k]
-        lines.append(canonical_json(sample))
+        lines.append(dumps(sample))
     return (b'{"format":' + canonical_json(header["format"]) + b',"format_version":'
             + canonical_json(header["format_version"]) + b',"model":' + canonical_json(header["model"])
-            + b',"samples":[\n' + b",\n".join(lines) + b'\n],"split":' + canonical_json(header["split"]) + b"}\n")
+            + b',"samples":[\n' + ",\n".join(lines).encode("utf-8") + b'\n],"split":'
+            + canonical_json(header["split"]) + b"}\n")
