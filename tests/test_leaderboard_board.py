@@ -165,10 +165,15 @@ def test_rank_rescores_missing_and_stale_scorecards(board, capsys):
     card["flowgauge_version"] = "0.0.9"
     card["scorecard_hash"] = scorecard_hash(card)
     path.write_text(json.dumps(card))
+    (board / "scorecards/ieee14/test-ood/nearest.json").write_text("not json")
+    assert main(["rank", "--verify", str(board)]) == 3
+    assert "Error: scorecards/ieee14/test-id/nearest.json: scorecard of " \
+           "submissions/ieee14/test-id/nearest.json does not match it: it is missing" \
+        in capsys.readouterr().err
     assert main(["rank", str(board)]) == 0
     out = capsys.readouterr().out
-    assert ("rescored 2 submission(s): scorecards/ieee14/test-id/nearest.json, "
-            "scorecards/ieee14/test-ood/linear.json") in out
+    assert ("rescored 3 submission(s): scorecards/ieee14/test-id/nearest.json, "
+            "scorecards/ieee14/test-ood/linear.json, scorecards/ieee14/test-ood/nearest.json") in out
     assert _tables(board) == before
 
 

@@ -65,6 +65,8 @@ def build_board(board: str | Path, *, verify: bool = False, workers: int = 1) ->
         for split in splits_used:  # recompute every hash the split's manifest records
             verify_split(split["folder"])
     notes = check_commitments(board, rules, splits_used) + notes + _orphans(board, subs)
+    notes += [f"rules.toml names network {n}, which has no counted submission"
+              for n in (rules.networks or ()) if n not in entries]
     tables = tuple(t for network in _network_order(entries)
                    for t in _network_tables(network, entries[network], rules))
     outputs = render_outputs(board=board, rules=rules, records=records, tables=tables,
@@ -99,10 +101,10 @@ def _scorecard(board: Path, sub: Submission, rules: Rules, profile_hash: str, ve
         try:
             card = read_scorecard(sub.scorecard)
             reason = scorecard_is_stale(card, sub, profile_hash)
-        except IntegrityError:
+        except (IntegrityError, InputError) as exc:
             if verify:
-                raise
-            reason = "its own hash does not match its content"
+                raise IntegrityError(exc.message, where=card_rel) from None
+            reason = f"it cannot be used ({exc.message})"  # a generated file: score again
     if verify:
         if reason is not None:
             raise IntegrityError(f"scorecard of {sub.shown_path} does not match it: {reason}",
