@@ -2,6 +2,7 @@
 processes and a Dask cluster give the same hashes, verify / publish / show on the command line."""
 
 import json
+import re
 import shutil
 
 import numpy as np
@@ -140,7 +141,8 @@ def test_find_and_show_frozen_splits(built, root, monkeypatch, capsys):
     assert load_split("ieee14", "test-id").n_samples == 8
     assert main(["splits", "show", "ieee14"]) == 0
     out = capsys.readouterr().out
-    assert "test-id" in out and "level" not in out
+    assert "Frozen splits of ieee14" in out
+    assert re.search(r"^test-id\s+8\s+\d+/\d+/\d+\s+\d+\s+\d+%\s+\d+%\s+0\s", out, re.M), out
 
 
 @pytest.mark.parametrize("args, message", [

@@ -87,7 +87,7 @@ def verify(paths) -> None:
 def _fmt(x: float, pct: bool = False) -> str:
     if x is None or (isinstance(x, float) and math.isnan(x)):
         return "-"
-    return f"{100 * x:.0f}%" if pct else f"{x:.3g}"
+    return f"{100 * x:.0f}%" if pct else f"{x:.2g}"
 
 
 @splits.command()
@@ -99,21 +99,24 @@ def show(network) -> None:
     names = [s for s in SPLIT_NAMES if (folder / s / "manifest.json").exists()]
     if not names:
         raise InputError("no frozen splits for this network", where=str(folder))
-    t = Table(title=f"Frozen splits of {network}")
-    for col in ("split", "samples", "load % of base\nmin/med/max", "binding\nsets",
-                "thermal\nbinding", "voltage\nbinding", "rejected draws", "solve s\nmed/p90/max"):
-        t.add_column(col)
+    from rich import box
+    t = Table(title=f"Frozen splits of {network}", box=box.SIMPLE_HEAD, show_edge=False, pad_edge=False,
+              padding=(0, 1, 0, 0), title_justify="left")
+    for col in ("split", "samples", "load %\nmin/med/max", "regimes", "thermal\nbinding",
+                "voltage\nbinding", "rejected\ndraws", "solve s\nmed/max"):
+        t.add_column(col, no_wrap=True)
     notes = []
     for name in names:
         s = summarize_split(folder / name)
         lo, med, hi = s.load_pct_of_base
-        rej = ", ".join(f"{k} {v}" for k, v in sorted(s.rejected.items())) or "none"
         sec = s.solve_seconds
         t.add_row(name, str(s.samples), f"{lo:.0f}/{med:.0f}/{hi:.0f}", str(s.distinct_signatures),
-                  _fmt(s.share_thermal, True), _fmt(s.share_voltage, True), rej,
-                  f"{_fmt(sec['median'])}/{_fmt(sec['p90'])}/{_fmt(sec['max'])}")
+                  _fmt(s.share_thermal, True), _fmt(s.share_voltage, True), str(sum(s.rejected.values())),
+                  f"{_fmt(sec['median'])}/{_fmt(sec['max'])}")
+        if s.rejected:
+            notes.append(f"{name} rejected: " + ", ".join(f"{k} {v}" for k, v in sorted(s.rejected.items())))
         if s.notes:
-            notes.append(f"{name}: {s.notes}")
+            notes.append(f"{name} notes: {s.notes}")
     console.print(t)
     for line in notes:
         console.print(line)
