@@ -201,3 +201,9 @@ def test_missing_file_and_directory(tmp_path):
         read_network_json(tmp_path / "nope.json")
     with pytest.raises(InputError, match=r"expected a network file, got a directory"):
         read_network_json(tmp_path)
+
+
+def test_ids_beyond_64_bits(ieee14_dict):
+    d = _mutated(ieee14_dict, ("buses", 0, "id"), 10**30)
+    with pytest.raises(InputError, match=r"f\.json: /buses: field 'id': expected integers of at most 18 digits"):
+        network_from_dict(d, source="f.json")

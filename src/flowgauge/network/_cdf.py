@@ -244,11 +244,11 @@ def _build(cards: _Cards, src: str) -> Network:
     )
     if no_q.any():
         warnings.warn(f"{src}: no reactive limits given for the generators at buses "
-                      f"{_id_list(b['id'][gb][no_q])}; set to +/-{UNLIMITED_Q_MVAR:g} MVAr", CdfImportWarning, stacklevel=4)
+                      f"{_id_list(b['id'][gb][no_q])}; set to +/-{UNLIMITED_Q_MVAR:g} MVAr", CdfImportWarning, stacklevel=3)
     controlled = br["type"] >= 2
     if controlled.any():
         warnings.warn(f"{src}: {int(controlled.sum())} branch(es) of type 2-4 (tap or phase-shift control); "
-                      f"their final turns ratio and angle are kept fixed", CdfImportWarning, stacklevel=4)
+                      f"their final turns ratio and angle are kept fixed", CdfImportWarning, stacklevel=3)
     return net
 
 

@@ -105,6 +105,21 @@ def _column(rows: list, key: str, kind: str, table: str, source: str) -> np.ndar
     return np.asarray(vals, dtype=dtype).reshape(len(rows))
 
 
+def _valid_column(rows: list, key: str, kind: str, where: str) -> np.ndarray:
+    """The column of rows that passed the schema check: types are known, so no per-value checks."""
+    if kind == "optfloat":
+        return np.array([r.get(key) for r in rows], dtype=float).reshape(len(rows))  # None -> NaN
+    vals = [r[key] for r in rows]
+    if kind == "int":
+        a = np.array(vals).reshape(len(rows))
+        if a.dtype.kind not in "iuf" or np.any(np.abs(a) >= 2**63):
+            raise InputError(f"field {key!r}: expected integers of at most 18 digits", where=where)
+        return a.astype(np.int64)
+    if kind == "bustype":
+        return np.array([_NAME_TO_TYPE[v] for v in vals], dtype=np.int64).reshape(len(rows))
+    return np.array(vals, dtype=bool if kind == "bool" else float).reshape(len(rows))
+
+
 @lru_cache(maxsize=1)
 def _validator():
     import jsonschema
@@ -229,7 +244,8 @@ def network_from_dict(data: Any, *, source: str = "<network>", check: bool = Tru
         if not isinstance(rows, list):
             raise InputError("expected a list of objects", where=f"{source}: /{table}")
         for key, attr, kind in spec:
-            kwargs[attr] = _column(rows, key, kind, table, source)
+            kwargs[attr] = (_valid_column(rows, key, kind, f"{source}: /{table}") if check
+                            else _column(rows, key, kind, table, source))
     base = data.get("base_mva")
     if isinstance(base, bool) or not isinstance(base, (int, float)) or not base > 0:
         raise InputError(f"expected a positive number, got {base!r}", where=f"{source}: /base_mva")
