@@ -64,9 +64,14 @@ def test_synthetic_topology_and_impedances_look_like_a_transmission_grid():
     net = synthetic(2000, 3)
     # common practice: real transmission grids have an average bus degree of about 2.5-3
     assert 2.5 <= 2 * net.n_branch / net.n_bus <= 3.0
-    # common practice: overhead transmission lines have x/r between about 5 and 15
-    line = net.tap == 1.0
-    assert np.all((net.x_pu[line] / net.r_pu[line] >= 5) & (net.x_pu[line] / net.r_pu[line] <= 15))
+    # common practice: overhead transmission lines have x/r between about 5 and 15, large
+    # transformers 20 or more; transmission and sub-transmission levels such as 345 and 138 kV
+    line = net.base_kv[net.f_idx] == net.base_kv[net.t_idx]
+    x_over_r = net.x_pu / net.r_pu
+    assert np.all((x_over_r[line] >= 5) & (x_over_r[line] <= 15))
+    assert np.all(x_over_r[~line] >= 20)
+    assert set(np.unique(net.base_kv)) == {345.0, 138.0}
+    assert np.any(net.tap[~line] != 1.0) and np.all(net.tap[line] == 1.0)
     # one generator per 4-6 buses and loads at most buses (common practice for test systems)
     assert 0.15 <= net.n_gen / net.n_bus <= 0.25
     assert 0.6 <= net.n_load / net.n_bus <= 0.9
