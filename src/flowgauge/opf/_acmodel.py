@@ -116,8 +116,12 @@ class ACModel:
         full = self.const.copy()
         full[:nb] = np.deg2rad(net.va_deg[net.ref_idx[0]]) if net.ref_idx.size else 0.0
         lo, up = self.full_lower[nb:], self.full_upper[nb:]
-        mid = np.where(np.isfinite(lo) & np.isfinite(up), 0.5 * (lo + up),
-                       np.where(np.isfinite(lo), lo, np.where(np.isfinite(up), up, 0.0)))
+        lo_f, up_f = np.isfinite(lo), np.isfinite(up)
+        mid = np.zeros(lo.size)
+        both = lo_f & up_f
+        mid[both] = 0.5 * (lo[both] + up[both])
+        mid[lo_f & ~up_f] = lo[lo_f & ~up_f]
+        mid[up_f & ~lo_f] = up[up_f & ~lo_f]
         full[nb:] = mid
         full[self.fixed_mask] = self.const[self.fixed_mask]
         return full[self.free]

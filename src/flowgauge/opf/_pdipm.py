@@ -127,18 +127,42 @@ class _Bounds:
         return out
 
 
-def _factor_solve(problem: Problem, lam, mu_h, d_h, d_x, rhs):
-    """Solve the reduced Newton system; retry once with a small regularisation."""
+def _factor(problem: Problem, lam, mu_h, d_h, d_x, delta: float):
+    """Factorise the reduced Newton matrix with ``delta`` added to its primal diagonal; retry
+    with a small dual regularisation if singular. Returns ``(solve, matrix)`` or None."""
     for reg in (0.0, 1e-10, 1e-7):
-        w = problem.kkt_matrix(lam, mu_h, d_h, d_x + reg, reg)
+        w = problem.kkt_matrix(lam, mu_h, d_h, d_x + (delta + reg), reg)
         try:
             with np.errstate(all="ignore"):
-                sol = spla.splu(w, permc_spec="MMD_AT_PLUS_A", diag_pivot_thresh=0.1).solve(rhs)
+                lu = spla.splu(w, permc_spec="MMD_AT_PLUS_A", diag_pivot_thresh=0.1)
         except RuntimeError:
             continue
-        if np.all(np.isfinite(sol)):
-            return sol
+        return lu.solve, w
     return None
+
+
+class _Curvature:
+    """Primal regularisation by the inertia-free curvature test of Chiang and Zavala
+    (Comput. Optim. Appl. 64:327-354, 2016): a step direction ``dx`` is accepted when
+    ``dx' M dx >= kappa dx'dx``; otherwise ``delta I`` is added to ``M`` and the system is
+    factorised again, ``delta`` growing as in Wachter and Biegler (Math. Program.
+    106:25-57, 2006, section 3.1)."""
+
+    KAPPA = 1e-8
+    FIRST, MIN, MAX = 1e-4, 1e-20, 1e20
+
+    def __init__(self) -> None:
+        self.last = 0.0
+
+    def ok(self, w: sp.spmatrix, dx: np.ndarray) -> bool:
+        n = dx.size
+        mdx = (w @ np.concatenate([dx, np.zeros(w.shape[0] - n)]))[:n]
+        return float(dx @ mdx) >= self.KAPPA * float(dx @ dx)
+
+    def next(self, delta: float) -> float:
+        if delta == 0.0:
+            return self.FIRST if self.last == 0.0 else max(self.MIN, self.last / 3.0)
+        return delta * (100.0 if self.last == 0.0 else 8.0)
 
 
 def interior_point(problem: Problem, x0: np.ndarray, settings: OPFSettings,
@@ -167,6 +191,7 @@ def interior_point(problem: Problem, x0: np.ndarray, settings: OPFSettings,
     feas_hist: list[float] = []
     status = "iteration_limit"
     it = 0
+    curvature = _Curvature()
     conds = (np.inf, np.inf, np.inf, np.inf)
     while True:
         lx = problem.grad_lagrangian(lam, mu[:n_h]) + bounds.jac_t(mu[n_h:], n_x)
@@ -198,16 +223,48 @@ def interior_point(problem: Problem, x0: np.ndarray, settings: OPFSettings,
         it += 1
         zinv = 1.0 / z
         d = mu * zinv
-        w = zinv * (mu * hb + gamma)
-        n_vec = lx + problem.jac_h_t(w[:n_h]) + bounds.jac_t(w[n_h:], n_x)
-        sol = _factor_solve(problem, lam, mu[:n_h], d[:n_h], bounds.diag(d[n_h:], n_x),
-                            -np.concatenate([n_vec, g]))
-        if sol is None:
+        delta = 0.0
+        while True:
+            fac = _factor(problem, lam, mu[:n_h], d[:n_h], bounds.diag(d[n_h:], n_x), delta)
+            if fac is None:
+                break
+            solve, wmat = fac
+
+            def direction(target):
+                w = zinv * (mu * hb + target)
+                n_vec = lx + problem.jac_h_t(w[:n_h]) + bounds.jac_t(w[n_h:], n_x)
+                sol = solve(-np.concatenate([n_vec, g]))
+                dx_ = sol[:n_x]
+                dz_ = -hb - z - np.concatenate([problem.jac_h(dx_), bounds.jac(dx_)])
+                return dx_, sol[n_x:], dz_, -mu + zinv * (target - mu * dz_)
+
+            if settings.predictor_corrector and n_in:
+                # Mehrotra: an affine-scaling predictor sets the centering, a corrector adds
+                # the second-order complementarity term
+                dx, dlam, dz, dmu = direction(0.0)
+            else:
+                dx, dlam, dz, dmu = direction(gamma)
+            if curvature.ok(wmat, dx) or delta >= curvature.MAX:
+                break
+            delta = curvature.next(delta)
+        if fac is None:
             status = "numerical_failure"
             break
-        dx, dlam = sol[:n_x], sol[n_x:]
-        dz = -hb - z - np.concatenate([problem.jac_h(dx), bounds.jac(dx)])
-        dmu = -mu + zinv * (gamma - mu * dz)
+        if delta > 0.0:
+            curvature.last = delta
+        if settings.predictor_corrector and n_in:
+            ap, ad = _max_step(z, dz, 1.0), _max_step(mu, dmu, 1.0)
+            mean = float(z @ mu) / n_in
+            mean_aff = float((z + ap * dz) @ (mu + ad * dmu)) / n_in
+            sigma = min(1.0, (mean_aff / mean) ** 3) if mean > 0 else 0.0
+            corrected = direction(sigma * mean - dz * dmu)
+            if _max_step(z, corrected[2], xi) >= settings.corrector_min_step:
+                dx, dlam, dz, dmu = corrected
+            else:  # the corrected step is short: take a plain centred step instead
+                dx, dlam, dz, dmu = direction(gamma)
+        if not (np.all(np.isfinite(dx)) and np.all(np.isfinite(dlam))):
+            status = "numerical_failure"
+            break
         ap = _max_step(z, dz, xi)
         ad = _max_step(mu, dmu, xi)
         if ap < settings.min_step or ad < settings.min_step:

@@ -40,6 +40,9 @@ class OPFSettings:
     ``binding_tol``: a limit is reported as binding when the solution lies within this distance
     of it (voltage [p.u.], generator output [p.u. on base_mva], branch flow as a fraction of
     its rating, angle difference [rad]).
+    ``predictor_corrector``: use Mehrotra's predictor-corrector steps (True) or a fixed
+    centering factor (False); ``corrector_min_step``: when the corrected step is shorter
+    than this fraction, a plain step with the fixed centering factor is taken instead.
     ``cost_scale``: factor applied to the objective inside the solver for better conditioning
     (results are reported unscaled; the complementarity and dual-infeasibility tests use the
     scaled objective).
@@ -56,6 +59,8 @@ class OPFSettings:
     centering: float = 0.1
     min_step: float = 1e-10
     binding_tol: float = 1e-4
+    predictor_corrector: bool = True
+    corrector_min_step: float = 0.5
     cost_scale: float = 1e-4
     stall_iterations: int = 25
     multiplier_limit: float = 1e8

@@ -1,0 +1,53 @@
+"""Maximum loadability: the largest scale factor of a load direction that the network can
+carry, solved as its own optimisation (maximise ``lam`` subject to the AC-OPF constraints
+with loads ``base + lam * direction`` and the dispatch free)."""
+
+from __future__ import annotations
+
+import time
+
+import numpy as np
+
+from ..errors import InputError
+from ..network._model import Network
+from ._acmodel import ACModel
+from ._pdipm import interior_point
+from ._report import point_report
+from ._result import LoadabilityResult, check_loads
+from ._settings import STATUS_MESSAGES, OPFSettings
+
+__all__ = ["max_loadability"]
+
+
+def max_loadability(net: Network, pd_mw=None, qd_mvar=None, dir_pd_mw=None, dir_qd_mvar=None,
+                    settings: OPFSettings | None = None) -> LoadabilityResult:
+    """Largest ``lam`` such that loads ``pd_mw + lam * dir_pd_mw``, ``qd_mvar + lam * dir_qd_mvar``
+    (each shape (n_load,) [MW], [MVAr]) still admit a point meeting every AC-OPF constraint.
+
+    Base loads default to the network's own, the direction to the base loads (a uniform
+    scaling, so the total load is ``(1 + lam)`` times the base). Generator costs are not used.
+    A negative ``lam`` means the base loading itself cannot be carried. Returns a
+    :class:`LoadabilityResult`; failure to converge is a status, not an exception.
+    """
+    st = settings or OPFSettings()
+    pd = check_loads(net, pd_mw, "pd_mw", net.pd_mw)
+    qd = check_loads(net, qd_mvar, "qd_mvar", net.qd_mvar)
+    dpd = check_loads(net, dir_pd_mw, "dir_pd_mw", pd)
+    dqd = check_loads(net, dir_qd_mvar, "dir_qd_mvar", qd)
+    if not (np.any(dpd != 0.0) or np.any(dqd != 0.0)):
+        raise InputError("the direction of load increase is zero everywhere; give a non-zero "
+                         "direction", where="dir_pd_mw")
+    model = ACModel(net, loadability=True)
+    model.set_loads(pd, qd, dpd, dqd)
+    t0 = time.perf_counter()
+    out = interior_point(model, model.start_point(), st)
+    seconds = time.perf_counter() - t0
+    rep = point_report(model, out.x, st.binding_tol)
+    lam = float(model.x_full[model.i_lam])
+    return LoadabilityResult(
+        status=out.status, message=STATUS_MESSAGES[out.status], lam=lam,
+        pd_mw=pd + lam * dpd, qd_mvar=qd + lam * dqd, pg_mw=rep.pg_mw, qg_mvar=rep.qg_mvar,
+        vm_pu=rep.vm_pu, va_deg=rep.va_deg, binding=rep.binding, signature=rep.signature,
+        iterations=out.iterations, seconds=seconds, max_p_mismatch_mw=rep.max_p_mismatch_mw,
+        max_q_mismatch_mvar=rep.max_q_mismatch_mvar, max_limit_violation=rep.max_limit_violation,
+        violations=rep.violations)
