@@ -13,6 +13,7 @@ from flowgauge.submission import write_predictions
 MODEL = {"name": "test model", "authors": ["flowgauge tests"], "description": "made in a test",
          "training_data_only": True}
 SIZES = {"train": 130, "test-id": 20, "test-ood": 20}
+SEEDS = {"train": 5, "test-id": 6, "test-ood": 7, "test-edge": 8}  # distinct draws per split
 
 
 @functools.lru_cache(maxsize=None)
@@ -23,14 +24,14 @@ def _root() -> Path:
 
 
 def split_path(network: str, split: str, samples: int | None = None) -> Path:
-    """Folder of a small split ``<root>/<network>/<split>`` built on first use (seed 5)."""
+    """Folder of a small split ``<root>/<network>/<split>`` built on first use."""
     return _built(network, split, samples or SIZES[split])
 
 
 @functools.lru_cache(maxsize=None)
 def _built(network: str, split: str, samples: int) -> Path:
     out = _root() / network / split
-    build_split(network, split, samples=samples, seed=5, out=out)
+    build_split(network, split, samples=samples, seed=SEEDS[split], out=out)
     return out
 
 

@@ -1,0 +1,98 @@
+"""Baselines: each writes a valid predictions file, and the scores move in the expected
+directions (not tuned values)."""
+
+import numpy as np
+import pytest
+
+from flowgauge.baselines import predict_baseline, write_baseline
+from flowgauge.cli import main
+from flowgauge.errors import InputError
+from flowgauge.scoring import score
+from flowgauge.submission import check_predictions
+
+from test_scoring_support import split, split_path
+
+
+@pytest.fixture(scope="module")
+def splits():
+    split_path("ieee14", "train")  # the learned baselines find it as the sibling folder
+    return {name: split("ieee14", name) for name in ("test-id", "test-ood")}
+
+
+@pytest.mark.parametrize("name", ["nearest", "linear"])
+def test_learned_baselines_do_worse_out_of_distribution(name, splits, tmp_path):
+    a = {}
+    for s, sp in splits.items():
+        path = write_baseline(name, sp, tmp_path / f"{s}.json")
+        check_predictions(path, sp)  # a valid predictions file
+        a[s] = score(path, sp).aggregates
+    # Common practice: a proxy fitted on in-distribution loads fails more often, and breaks the
+    # power balance more, on loadings outside its training distribution.
+    assert a["test-ood"]["restoration_failure_rate"] > a["test-id"]["restoration_failure_rate"]
+    assert a["test-ood"]["violations"]["raw_balance_mw"]["mean"] > a["test-id"]["violations"]["raw_balance_mw"]["mean"]
+
+
+def test_nearest_returns_the_nearest_training_reference(splits):
+    train = split("ieee14", "train")
+    sp = splits["test-id"]
+    pred = predict_baseline("nearest", sp, train=split_path("ieee14", "train"))
+    # brute force over the training samples (independent of the k-d tree)
+    x_train = np.hstack([train.pd_mw, train.qd_mvar])
+    x = np.hstack([sp.pd_mw, sp.qd_mvar])
+    nearest = np.argmin(((x[:, None, :] - x_train[None]) ** 2).sum(axis=2), axis=1)
+    np.testing.assert_array_equal(pred.pg_mw, train.references.pg_mw[nearest])
+    np.testing.assert_array_equal(pred.va_deg, train.references.va_deg[nearest])
+
+
+def test_linear_recovers_an_exactly_affine_map():
+    # Constructed case: targets are a known affine map of the loads; ridge regression with a
+    # vanishing penalty must predict new loads through that same map (hand-set coefficients).
+    from types import SimpleNamespace
+
+    from flowgauge.baselines._models import linear
+    rng = np.random.default_rng(0)
+    pd_train, qd_train = rng.uniform(10, 20, (50, 2)), rng.uniform(1, 5, (50, 2))
+    w = np.array([[1.0, -2.0], [0.5, 0.0], [0.0, 3.0], [2.0, 1.0]])  # 4 load features -> 2 outputs
+
+    def truth(pd, qd):
+        return np.hstack([pd, qd]) @ w + np.array([7.0, -1.0])
+
+    y = truth(pd_train, qd_train)
+    refs = SimpleNamespace(pg_mw=y, vm_pu=y[:, :1] * 0 + 1.0, va_deg=y[:, 1:], qg_mvar=y[:, :1])
+    train = SimpleNamespace(pd_mw=pd_train, qd_mvar=qd_train, references=refs)
+    pd_new, qd_new = np.array([[12.0, 18.0]]), np.array([[2.0, 4.0]])
+    pred = linear(train, pd_new, qd_new, alpha=1e-10)
+    # by hand: [12, 18, 2, 4] @ w + [7, -1] = [12 + 9 + 0 + 8 + 7, -24 + 0 + 6 + 4 - 1] = [36, -15]
+    np.testing.assert_allclose(pred.pg_mw, [[36.0, -15.0]], atol=1e-6)
+    np.testing.assert_allclose(pred.vm_pu, [[1.0]], atol=1e-9)
+
+
+def test_dc_opf_gap_is_positive(splits, tmp_path):
+    sp = splits["test-id"]
+    path = write_baseline("dc-opf", sp, tmp_path / "dc.json")
+    a = score(path, sp).aggregates
+    # Common practice: the DC-OPF dispatch ignores losses and reactive power, so once an AC power
+    # flow restores it, it costs more than the AC optimum (around a percent on test systems).
+    assert a["restored_gap_pct"]["mean"] > 0
+    assert a["restored_gap_pct"]["median"] > 0
+
+
+def test_baseline_command(splits, tmp_path, capsys):
+    out = tmp_path / "lin.parquet"
+    rc = main(["baseline", "linear", "--split", str(split_path("ieee14", "test-id")), "--out", str(out),
+               "--format", "parquet"])
+    assert rc == 0 and out.exists()
+    assert "wrote" in capsys.readouterr().out
+    rc = main(["baseline", "oracle", "--split", str(split_path("ieee14", "test-id")), "--out", str(tmp_path / "x.json")])
+    assert rc == 2
+    assert ("The 'name' parameter must be one of ['dc-opf', 'linear', 'nearest']. Got 'oracle' instead."
+            in capsys.readouterr().err)
+    assert not (tmp_path / "x.json").exists()
+
+
+def test_missing_train_split(tmp_path):
+    from flowgauge.splits import build_split
+    lone = tmp_path / "ieee14" / "test-id"
+    build_split("ieee14", "test-id", samples=2, seed=9, out=lone)
+    with pytest.raises(InputError, match="no frozen split ieee14/train"):
+        predict_baseline("nearest", lone)
