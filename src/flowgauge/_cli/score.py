@@ -122,19 +122,22 @@ def baseline(name: str, split_path: Path, out: Path, train_path, fmt: str) -> No
 @click.command()
 @click.option("--workdir", type=click.Path(file_okay=False, path_type=Path), default=None,
               help="Keep the predictions (and built splits) here (default: a temporary folder).")
-def demo(workdir) -> None:
+@click.option("--samples", type=click.IntRange(min=2), default=None,
+              help="Samples per split for splits the demo builds (when no frozen split exists).")
+def demo(workdir, samples) -> None:
     """Run the baselines on the demo network, score them and compare."""
     from ..baselines import run_demo
 
     def run(folder: Path):
-        return run_demo(folder, say=lambda msg: err_console.print(f"[dim]{msg}[/dim]"))
+        return run_demo(folder, samples=samples, say=lambda msg: err_console.print(f"[dim]{msg}[/dim]"))
 
     if workdir is None:
         with tempfile.TemporaryDirectory(prefix="flowgauge-demo-") as tmp:
             result = run(Path(tmp))
     else:
         result = run(workdir)
-    t = Table(title=f"demo network, {result.source} splits (lower is better)", header_style="bold")
+    kinds = sorted(set(result.sources.values()))
+    t = Table(title=f"demo network, {' and '.join(kinds)} splits (lower is better)", header_style="bold")
     for col in ("baseline", "split", "samples", "restoration_failure_rate", "restored_gap_pct mean",
                 "raw_gap_pct mean"):
         t.add_column(col, justify="left" if col in ("baseline", "split") else "right")

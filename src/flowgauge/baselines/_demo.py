@@ -1,6 +1,6 @@
 """The demo: on the bundled fictional network ``demo``, run every baseline on the test splits,
-score them and return the comparison. Uses the frozen splits under ``splits/demo/`` when they
-exist, otherwise builds small splits into a working folder."""
+score them and return the comparison. Each split is the frozen one under ``splits/demo/`` when
+it exists, otherwise a small split built into the working folder."""
 
 from __future__ import annotations
 
@@ -10,57 +10,63 @@ from typing import Callable
 
 from ._run import BASELINES, write_baseline
 
-__all__ = ["DemoResult", "run_demo", "DEMO_NETWORK", "DEMO_SPLITS", "DEMO_SEED"]
+__all__ = ["DemoResult", "run_demo", "DEMO_NETWORK", "DEMO_SPLITS", "DEMO_SEEDS", "BUILT_SAMPLES"]
 
 DEMO_NETWORK = "demo"
 DEMO_SPLITS = ("test-id", "test-ood", "test-edge")
-DEMO_SEED = 7
+DEMO_SEEDS = {"train": 71, "test-id": 72, "test-ood": 73, "test-edge": 74}
 # samples per split when the demo builds its own (small, so the demo takes well under a minute)
 BUILT_SAMPLES = {"train": 60, "test-id": 20, "test-ood": 20, "test-edge": 10}
 
 
 @dataclass(frozen=True)
 class DemoResult:
-    """``source``: "frozen" or "built"; ``split_paths``: split name -> folder; ``scorecards``:
-    (baseline, split) -> Scorecard, in baseline then split order."""
+    """``sources``: split name -> "frozen" or "built"; ``split_paths``: split name -> folder;
+    ``scorecards``: (baseline, split) -> Scorecard, in baseline then split order."""
 
-    source: str
+    sources: dict
     split_paths: dict
     scorecards: dict
 
 
-def _splits(workdir: Path, samples: dict[str, int], say: Callable[[str], None]) -> tuple[str, dict]:
+def _splits(workdir: Path, samples: dict[str, int], say: Callable[[str], None]) -> tuple[dict, dict]:
     from ..splits import build_split, list_splits
 
     frozen = {p.name: p for p in list_splits() if p.parent.name == DEMO_NETWORK}
-    if all(s in frozen for s in ("train", *DEMO_SPLITS)):
-        return "frozen", {s: frozen[s] for s in ("train", *DEMO_SPLITS)}
-    paths = {}
-    for i, name in enumerate(("train", *DEMO_SPLITS)):
+    paths, sources = {}, {}
+    for name in ("train", *DEMO_SPLITS):
+        if name in frozen:
+            paths[name], sources[name] = frozen[name], "frozen"
+            continue
         out = workdir / DEMO_NETWORK / name
         if not (out / "manifest.json").exists():
-            say(f"building split {DEMO_NETWORK}/{name} ({samples[name]} samples)")
-            build_split(DEMO_NETWORK, name, samples=samples[name], seed=DEMO_SEED + i, out=out)
-        paths[name] = out
-    return "built", paths
+            say(f"no frozen split {DEMO_NETWORK}/{name}: building one with {samples[name]} samples")
+            build_split(DEMO_NETWORK, name, samples=samples[name], seed=DEMO_SEEDS[name], out=out)
+        paths[name], sources[name] = out, "built"
+    return paths, sources
 
 
-def run_demo(workdir: str | Path, *, samples: dict[str, int] | None = None,
+def run_demo(workdir: str | Path, *, samples: int | None = None,
              say: Callable[[str], None] = lambda msg: None) -> DemoResult:
-    """Run the demo in ``workdir`` (predictions files and, if needed, built splits go there).
-    ``samples``: split name -> sample count for built splits; ``say`` reports each step."""
+    """Run the demo in ``workdir`` (predictions files and any built splits go there).
+    ``samples``: samples per split for splits the demo builds (default :data:`BUILT_SAMPLES`);
+    ``say`` reports each step."""
+    from ..errors import InputError
     from ..scoring import score
     from ..splits import load_split
 
+    if samples is not None and (isinstance(samples, bool) or not isinstance(samples, int) or samples < 2):
+        raise InputError(f"expected an integer >= 2, got {samples!r}", where="--samples")
+    counts = dict(BUILT_SAMPLES) if samples is None else {k: samples for k in BUILT_SAMPLES}
     workdir = Path(workdir)
-    source, paths = _splits(workdir, {**BUILT_SAMPLES, **(samples or {})}, say)
+    paths, sources = _splits(workdir, counts, say)
     train = load_split(paths["train"])
     cards = {}
     for name in BASELINES:
         for split_name in DEMO_SPLITS:
             split = load_split(paths[split_name])
             out = workdir / "predictions" / f"{name}.{split_name}.json"
-            say(f"baseline {name} on {split_name}")
+            say(f"baseline {name} on {DEMO_NETWORK}/{split_name} ({split.n_samples} samples)")
             write_baseline(name, split, out, train=train)
             cards[(name, split_name)] = score(out, split)
-    return DemoResult(source=source, split_paths={k: str(v) for k, v in paths.items()}, scorecards=cards)
+    return DemoResult(sources=sources, split_paths={k: str(v) for k, v in paths.items()}, scorecards=cards)
