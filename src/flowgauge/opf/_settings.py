@@ -52,7 +52,7 @@ class OPFSettings:
 
     feasibility_tol: float = 1e-6
     gradient_tol: float = 1e-6
-    complementarity_tol: float = 1e-6
+    complementarity_tol: float = 1e-8
     cost_tol: float = 1e-6
     max_iter: int = 150
     step_to_boundary: float = 0.99995
