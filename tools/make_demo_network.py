@@ -107,15 +107,15 @@ TRANSFORMERS = [
 ]
 
 SCENARIO = (
-    "Tarrowmere is a made-up island of about 300 MW peak demand. Two hydro units at Orbeck Falls in "
-    "the northern highlands are the cheapest source; their power reaches the south over a "
-    "double-circuit 132 kV corridor to the Highmoor switching station, which congests when demand "
-    "rises 10-20% above the base case. The port town of Vellhaven holds half the demand and a gas "
-    "station (combined cycle plus an open-cycle turbine). A geothermal plant at Cindral, a wind farm "
-    "at Greyshore and a biomass plant at the Tessaford sawmill add mid-priced and cheap energy; "
-    "diesel peakers at Cindral and Pennowick are the expensive last resort. Towns are fed through "
-    "132/33 kV transformers, several with off-nominal taps; industrial loads (docks, sawmill, "
-    "quarry, fish works) run at lower power factors than the towns."
+    "Tarrowmere is a made-up island with 275 MW of demand in the base case. Two hydro units at "
+    "Orbeck Falls in the northern highlands are the cheapest source; their power reaches the south "
+    "over a double-circuit 132 kV corridor to the Highmoor switching station, which congests once "
+    "demand rises about 10% above the base case. The port town of Vellhaven holds nearly half the "
+    "demand and a gas station (combined cycle plus an open-cycle turbine). A geothermal plant at "
+    "Cindral, a wind farm at Greyshore and a biomass plant at the Tessaford sawmill add mid-priced "
+    "and cheap energy; diesel peakers at Cindral and Pennowick are the expensive last resort. Towns "
+    "are fed through 132/33 kV transformers, several with off-nominal taps; industrial loads "
+    "(docks, sawmill, quarry, fish works) run at lower power factors than the towns."
 )
 
 

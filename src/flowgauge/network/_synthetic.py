@@ -62,7 +62,8 @@ POWER_FACTOR = (0.95, 0.99)
 CAPACITY_OVER_LOAD = 1.4
 GEN_SIGMA, GEN_SIZE_RANGE = 0.7, 20.0
 Q_RANGE_PER_MW = (-0.3, 0.5)
-VG_PU = 1.02                     # one setpoint: unequal setpoints of close PV buses drive large reactive flows
+# one voltage setpoint: unequal setpoints at nearby PV buses drive large reactive flows
+VG_PU = 1.02
 REGION_BUSES = 20                # generation is balanced against load per region of about this many buses
 VMIN_PU, VMAX_PU = 0.94, 1.06
 # cost classes: share, c1 range [$/MWh]; c2 = c1 x k / pmax with k in K_RANGE (marginal cost
@@ -194,7 +195,8 @@ def _transformers(lv_load_mw: np.ndarray, rng) -> dict[str, np.ndarray]:
             "rate": rate, "tap": rng.choice(TRAFO_TAPS, rate.size)}
 
 
-def _generators(region: np.ndarray, n_hv: int, load_bus: np.ndarray, pd: np.ndarray, rng) -> dict[str, np.ndarray]:
+def _generators(region: np.ndarray, n_hv: int, load_bus: np.ndarray, pd: np.ndarray,
+                rng) -> dict[str, np.ndarray]:
     """Generator bus positions (sorted), capacities, reactive ranges, setpoints and costs.
 
     Generators sit at 345 kV buses, an equal share of each region's (``region``: shape (n_bus,),
@@ -203,7 +205,8 @@ def _generators(region: np.ndarray, n_hv: int, load_bus: np.ndarray, pd: np.ndar
     moderate at any size. A region without a generator is served by its neighbours."""
     bus = _spread_choice(region[:n_hv], GEN_SHARE * region.size / n_hv, rng)
     n_gen = bus.size
-    size = np.clip(rng.lognormal(0.0, GEN_SIGMA, n_gen), 1.0 / np.sqrt(GEN_SIZE_RANGE), np.sqrt(GEN_SIZE_RANGE))
+    half_range = np.sqrt(GEN_SIZE_RANGE)
+    size = np.clip(rng.lognormal(0.0, GEN_SIGMA, n_gen), 1.0 / half_range, half_range)
     n_region = int(region.max()) + 1
     region_load = np.bincount(region[load_bus], weights=pd, minlength=n_region)
     region_size = np.bincount(region[bus], weights=size, minlength=n_region)
@@ -261,7 +264,8 @@ def _base_dispatch(n, f, t, branch, load_bus, pd, gen_bus, pmax, ref) -> tuple[n
     load_at_bus = np.bincount(load_bus, weights=pd, minlength=n)
     total = pd.sum()
     pg = pmax * (total / pmax.sum())
-    flow, theta = _dc_flow(n, f, t, branch["x"], np.bincount(gen_bus, weights=pg, minlength=n) - load_at_bus, ref)
+    injection = np.bincount(gen_bus, weights=pg, minlength=n) - load_at_bus
+    flow, theta = _dc_flow(n, f, t, branch["x"], injection, ref)
     loss_mw = float(np.sum(branch["r"] * (flow / BASE_MVA) ** 2) * BASE_MVA)
     pg = np.round(pmax * ((total + loss_mw) / pmax.sum()), 2)
     return pg, flow, theta
