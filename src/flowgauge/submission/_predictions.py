@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import gc
 import json
 import os
 from dataclasses import dataclass
@@ -129,7 +130,10 @@ def _read_bytes(path: Path, max_bytes: int) -> bytes:
                 f"the file has {size:,} bytes, over the limit of {max_bytes:,} bytes "
                 "(raise it with --max-bytes, or max_bytes= in Python)", where=str(path))
         with open(path, "rb") as f:
-            return f.read(max_bytes + 1)
+            data = f.read()
+        if len(data) > max_bytes:  # the file grew after stat()
+            raise InputError(f"the file has more than {max_bytes:,} bytes, the limit", where=str(path))
+        return data
     except FileNotFoundError:
         raise InputError("no such file", where=str(path)) from None
     except PermissionError:
@@ -147,7 +151,7 @@ def _read_json(data: bytes, path: Path, problems: Problems):
     if not text.strip():
         raise InputError("the file is empty; expected a JSON or Parquet predictions file", where=str(path))
     try:
-        doc = json.loads(text)
+        doc = _parse_json(text)
     except json.JSONDecodeError as exc:
         body = text.rstrip()
         # An object ends with "}": an error in the last few characters of a text that does
@@ -171,6 +175,19 @@ def _read_json(data: bytes, path: Path, problems: Problems):
     if checked is None:
         return None
     return (header, *checked)
+
+
+def _parse_json(text: str):
+    """``json.loads`` with the cyclic garbage collector paused: parsing creates millions of
+    lists that hold no cycles, and collections triggered by their allocation would rescan
+    them again and again."""
+    was_enabled = gc.isenabled()
+    gc.disable()
+    try:
+        return json.loads(text)
+    finally:
+        if was_enabled:
+            gc.enable()
 
 
 def check_header(doc, path: Path, problems: Problems) -> dict | None:
