@@ -241,7 +241,8 @@ def test_unknown_bus_type(tmp_path, lines):
     ls = list(lines)
     i = _bus_line(ls, 3)
     ls[i] = _put(ls[i], 25, 26, "5")
-    with pytest.raises(InputError, match=rf"grid\.cdf:{i + 1}: columns 25-26 \(bus type\): expected 0, 1, 2 or 3, got 5"):
+    with pytest.raises(InputError,
+                       match=rf"grid\.cdf:{i + 1}: columns 25-26 \(bus type\): expected 0, 1, 2 or 3, got 5"):
         read_cdf(_write(tmp_path, ls))
 
 
@@ -269,7 +270,8 @@ def test_missing_terminator(tmp_path, lines):
 
 def test_missing_section_header(tmp_path, lines):
     ls = [ln for ln in lines if not ln.startswith("BUS DATA FOLLOWS")]
-    with pytest.raises(InputError, match=r"grid\.cdf:2: expected a line starting with 'BUS DATA FOLLOWS', got '1 Bus 1"):
+    with pytest.raises(InputError,
+                       match=r"grid\.cdf:2: expected a line starting with 'BUS DATA FOLLOWS', got '1 Bus 1"):
         read_cdf(_write(tmp_path, ls))
 
 

@@ -28,7 +28,7 @@ from typing import Any
 import numpy as np
 
 from ..errors import InputError
-from ._model import BUS_PQ, BUS_PV, BUS_REF, Network
+from ._model import BUS_PQ, Network
 
 __all__ = ["read_cdf", "CdfImportWarning", "SIDE_FORMAT_NAME", "DEFAULT_VMIN_PU", "DEFAULT_VMAX_PU",
            "UNLIMITED_Q_MVAR"]
@@ -244,7 +244,8 @@ def _build(cards: _Cards, src: str) -> Network:
     )
     if no_q.any():
         warnings.warn(f"{src}: no reactive limits given for the generators at buses "
-                      f"{_id_list(b['id'][gb][no_q])}; set to +/-{UNLIMITED_Q_MVAR:g} MVAr", CdfImportWarning, stacklevel=3)
+                      f"{_id_list(b['id'][gb][no_q])}; set to +/-{UNLIMITED_Q_MVAR:g} MVAr",
+                      CdfImportWarning, stacklevel=3)
     controlled = br["type"] >= 2
     if controlled.any():
         warnings.warn(f"{src}: {int(controlled.sum())} branch(es) of type 2-4 (tap or phase-shift control); "

@@ -90,7 +90,8 @@ def _check_references(net: Network, source: str) -> None:
     for table, field in (("load", "load_bus"), ("generator", "gen_bus"), ("branch", "from_bus"), ("branch", "to_bus")):
         ref = np.asarray(getattr(net, field))
         if ref.dtype.kind not in "iu":
-            raise InputError(f"expected integer bus ids, got dtype {ref.dtype}", where=f"{source}: {table} field {_JSON_NAME.get(field, field)}")
+            raise InputError(f"expected integer bus ids, got dtype {ref.dtype}",
+                             where=f"{source}: {table} field {_JSON_NAME.get(field, field)}")
         missing = ~np.isin(ref, bus_ids)
         if missing.any():
             i = int(np.flatnonzero(missing)[0])
@@ -102,7 +103,8 @@ def _check_values(net: Network, source: str) -> None:
     known = np.isin(net.bus_type, list(BUS_TYPE_NAMES))
     if not known.all():
         i = int(np.flatnonzero(~known)[0])
-        _fail(net, source, "bus", ~known, "type", f"unknown bus type {int(net.bus_type[i])} (expected 1 PQ, 2 PV or 3 reference)")
+        _fail(net, source, "bus", ~known, "type",
+              f"unknown bus type {int(net.bus_type[i])} (expected 1 PQ, 2 PV or 3 reference)")
     _fail(net, source, "bus", net.vmin_pu > net.vmax_pu, "vmin_pu", "vmin_pu is above vmax_pu")
     _fail(net, source, "bus", net.vmin_pu < 0, "vmin_pu", "negative voltage limit (expected >= 0)")
     _fail(net, source, "generator", net.pmin_mw > net.pmax_mw, "pmin_mw", "pmin_mw is above pmax_mw")

@@ -162,10 +162,10 @@ _PY_TYPES = {"number": (int, float), "integer": (int, float), "boolean": (bool,)
 
 def _column_ok(col: list, spec: dict) -> bool:
     """True when every value of ``col`` satisfies the property schema ``spec``."""
-    if "const" in spec:
-        return all(v == spec["const"] for v in col)
-    if "enum" in spec:
-        return set(col) <= set(spec["enum"])
+    if "const" in spec or "enum" in spec:
+        allowed = spec["enum"] if "enum" in spec else [spec["const"]]
+        # JSON equality: true is not 1, unlike Python's True == 1
+        return all(any(v == a and isinstance(v, bool) == isinstance(a, bool) for a in allowed) for v in col)
     types = [spec["type"]] if isinstance(spec["type"], str) else spec["type"]
     allowed = tuple(t for name in types for t in _PY_TYPES[name])
     if not all(type(v) in allowed for v in col):  # type(True) is bool, not int: booleans are not numbers
