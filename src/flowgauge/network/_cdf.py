@@ -156,6 +156,8 @@ def _parse(path: Path) -> _Cards:
         raise InputError("no such file", where=str(path)) from None
     except IsADirectoryError:
         raise InputError("expected a network file, got a directory", where=str(path)) from None
+    except OSError as exc:
+        raise InputError(f"cannot read the file ({exc.strerror})", where=str(path)) from None
     except UnicodeDecodeError as exc:
         line = path.read_bytes()[: exc.start].count(b"\n") + 1
         raise InputError("expected plain ASCII text (IEEE Common Data Format)", where=f"{path}:{line}") from None
@@ -316,6 +318,8 @@ def _read_side(path: Path) -> dict:
         data = json.loads(path.read_text(encoding="utf-8"), parse_constant=_no_constant)
     except FileNotFoundError:
         raise InputError("no such side file", where=str(path)) from None
+    except OSError as exc:
+        raise InputError(f"cannot read the side file ({exc.strerror})", where=str(path)) from None
     except json.JSONDecodeError as exc:
         raise InputError(f"not valid JSON: {exc.msg}", where=f"{path}:{exc.lineno}:{exc.colno}") from None
     except (UnicodeDecodeError, ValueError) as exc:

@@ -275,6 +275,8 @@ def read_network_json(path: str | Path) -> Network:
         raise InputError("no such file", where=str(path)) from None
     except IsADirectoryError:
         raise InputError("expected a network file, got a directory", where=str(path)) from None
+    except OSError as exc:
+        raise InputError(f"cannot read the file ({exc.strerror})", where=str(path)) from None
     except UnicodeDecodeError as exc:
         raise InputError(f"not UTF-8 text ({exc.reason} at byte {exc.start})", where=str(path)) from None
     try:
