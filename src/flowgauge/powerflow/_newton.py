@@ -11,7 +11,6 @@ uses the LU vectorised across samples of ``_stacked_lu`` ("stacked");
 
 from __future__ import annotations
 
-import warnings
 import weakref
 
 import numpy as np
@@ -35,19 +34,44 @@ def stacked_lu(pat: JacobianPattern) -> StackedLU | None:
     diagonal pivots)."""
     if pat not in _LU_CACHE:
         try:
-            _LU_CACHE[pat] = StackedLU(pat)
+            lu = StackedLU(pat)
+            lu.superlu = _OrderedSuperLU(pat, lu.old_of_new)
+            _LU_CACHE[pat] = lu
         except RuntimeError:
             _LU_CACHE[pat] = None
     return _LU_CACHE[pat]
+
+
+class _OrderedSuperLU:
+    """SuperLU (partial pivoting) on the Jacobian permuted once by the fill-reducing ordering
+    of :class:`StackedLU`, so no ordering is computed per factorisation."""
+
+    def __init__(self, pat: JacobianPattern, old_of_new: np.ndarray):
+        probe = pat.matrix(np.arange(1, pat.nnz + 1, dtype=float))
+        perm = sp.csc_matrix(probe[old_of_new][:, old_of_new])
+        perm.sort_indices()
+        self.data_map = (perm.data - 1).astype(np.int64)
+        self.matrix = sp.csc_matrix((np.zeros(pat.nnz), perm.indices, perm.indptr), shape=perm.shape)
+        self.old_of_new = old_of_new
+        self.new_of_old = np.argsort(old_of_new)
+
+    def solve(self, data: np.ndarray, f: np.ndarray) -> np.ndarray:
+        self.matrix.data = data[self.data_map]
+        lu = spla.splu(self.matrix, permc_spec="NATURAL")
+        return lu.solve(f[self.old_of_new])[self.new_of_old]
 
 
 def _solve_loop(pat: JacobianPattern, data: np.ndarray, f: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Newton steps sample by sample; returns ``(dx, singular)``."""
     dx = np.zeros_like(f)
     singular = np.zeros(f.shape[0], bool)
+    ordered = stacked_lu(pat)
     for k in range(f.shape[0]):  # loop over samples around one sparse factorisation each
         try:
-            dx[k] = spla.splu(pat.matrix(data[k])).solve(f[k])
+            if ordered is not None:
+                dx[k] = ordered.superlu.solve(data[k], f[k])
+            else:
+                dx[k] = spla.splu(pat.matrix(data[k])).solve(f[k])
         except RuntimeError:
             singular[k] = True
     return dx, singular
@@ -99,38 +123,47 @@ def newton(pat: JacobianPattern, ybus: sp.csr_matrix, vm: np.ndarray, va: np.nda
     status, max_mismatch)`` with status names from ``STATUSES``.
     """
     solve = LINEAR_SOLVERS[linear]
-    vm, va = vm.astype(float).copy(), va.astype(float).copy()
+    vm, va = np.array(vm, dtype=float), np.array(va, dtype=float)
     n_s = vm.shape[0]
     pvpq, pq, npvpq = pat.pvpq, pat.pq, pat.pvpq.size
     iterations = np.zeros(n_s, np.int64)
     code = np.full(n_s, _CODE[MAX_ITERATIONS])
     max_mis = np.zeros(n_s)
     active = np.arange(n_s)
-    ybus = sp.csr_matrix(ybus)
-    with np.errstate(all="ignore"), warnings.catch_warnings():
-        warnings.simplefilter("ignore", sp.SparseEfficiencyWarning)
+    # while every sample is still active, work on the arrays themselves instead of copies
+    vm_a, va_a, sbus_a = vm, va, sbus
+    with np.errstate(all="ignore"):
         for it in range(max_iter + 1):
-            e = np.exp(1j * va[active])
-            f, i_bus = _mismatch(ybus, vm[active], e, sbus[active], pvpq, pq)
+            e = np.exp(1j * va_a)
+            f, i_bus = _mismatch(ybus, vm_a, e, sbus_a, pvpq, pq)
             norm = np.abs(f).max(axis=1, initial=0.0)
-            finite = np.isfinite(norm) & np.isfinite(vm[active]).all(axis=1) & np.isfinite(va[active]).all(axis=1)
+            finite = np.isfinite(norm) & np.isfinite(vm_a).all(axis=1) & np.isfinite(va_a).all(axis=1)
             max_mis[active] = np.where(finite, norm, np.inf)
             iterations[active] = it
             done = finite & (norm < tol)
+            keep = finite & ~done
             code[active[done]] = _CODE[CONVERGED]
             code[active[~finite]] = _CODE[DIVERGED]
-            keep = finite & ~done
             if it == max_iter or not keep.any():
                 break
-            active, f, i_bus, e = active[keep], f[keep], i_bus[keep], e[keep]
-            data = pat.values(vm[active], e, i_bus)
+            vm_k = vm_a
+            if not keep.all():
+                active, f, i_bus, e, vm_k = active[keep], f[keep], i_bus[keep], e[keep], vm_a[keep]
+            data = pat.values(vm_k, e, i_bus)
             dx, singular = solve(pat, data, f)
             if singular.any():
                 code[active[singular]] = _CODE[SINGULAR_JACOBIAN]
                 active, dx = active[~singular], dx[~singular]
                 if active.size == 0:
                     break
-            va[np.ix_(active, pvpq)] -= dx[:, :npvpq]
-            vm[np.ix_(active, pq)] -= dx[:, npvpq:]
+            if active.size == n_s:
+                va[:, pvpq] -= dx[:, :npvpq]
+                vm[:, pq] -= dx[:, npvpq:]
+                vm_a, va_a, sbus_a = vm, va, sbus
+            else:
+                rows = active[:, None]
+                va[rows, pvpq] -= dx[:, :npvpq]
+                vm[rows, pq] -= dx[:, npvpq:]
+                vm_a, va_a, sbus_a = vm[active], va[active], sbus[active]
     status = np.array(STATUS_NAMES, dtype=object)[code].astype(str)
     return vm, va, iterations, status, max_mis
