@@ -47,15 +47,17 @@ def bootstrap_ci(columns: Mapping[str, np.ndarray], *, resamples: int, seed: int
         return {k: None for k in names}
     finite = np.isfinite(data)
     vals = np.where(finite, data, 0.0)
+    complete = finite.all(axis=1)
     rng = Generator(PCG64(seed))
     means = np.empty((len(names), resamples))
     for start in range(0, resamples, _BLOCK):
         b = min(_BLOCK, resamples - start)
         idx = rng.integers(0, n, size=(b, n))
-        sums = vals[:, idx].sum(axis=2)
-        counts = finite[:, idx].sum(axis=2)
-        with np.errstate(invalid="ignore", divide="ignore"):
-            means[:, start:start + b] = np.where(counts > 0, sums / np.maximum(counts, 1), np.nan)
+        for i in range(len(names)):  # a handful of statistics, not an element loop
+            sums = vals[i][idx].sum(axis=1)
+            counts = np.full(b, n) if complete[i] else finite[i][idx].sum(axis=1)
+            with np.errstate(invalid="ignore", divide="ignore"):
+                means[i, start:start + b] = np.where(counts > 0, sums / np.maximum(counts, 1), np.nan)
     alpha = (1.0 - level) / 2.0
     out: dict[str, Any] = {}
     for i, k in enumerate(names):
