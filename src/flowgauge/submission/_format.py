@@ -88,6 +88,8 @@ class Problems:
 def format_problems(problems: list[Problem] | tuple[Problem, ...], count: int,
                     limit: int = SHOWN_ERRORS) -> str:
     """Plain text: the first ``limit`` problems, one per line, then "... and N more errors"."""
+    if count == 0:
+        return "no errors: the predictions are valid"
     noun = "error" if count == 1 else "errors"
     lines = [f"{count} {noun} in the predictions file:"]
     lines += [f"  {p}" for p in list(problems)[:limit]]

@@ -22,7 +22,6 @@ _LIST_TYPES = (pa.types.is_list, pa.types.is_large_list, pa.types.is_fixed_size_
 
 def read_parquet(data: bytes, path: Path, problems: Problems):
     """``(header, sample_id, {field: array or None}, inference_ms)`` in file order, or None."""
-    from ._predictions import check_header  # shared with JSON
     try:
         table = pq.read_table(pa.BufferReader(data))
     except Exception as exc:  # noqa: BLE001 - untrusted bytes: any reader failure is bad input

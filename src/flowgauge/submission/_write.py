@@ -66,7 +66,7 @@ def write_predictions(split, *, pg_mw, vm_pu, va_deg=None, qg_mvar=None, inferen
     from ._validate import validate_predictions
     if not hasattr(split, "sample_id"):
         from ..splits import load_split
-        split = load_split(split)
+        split = load_split(split, references=False)
     fmt = _format_of(Path(path), format)
     header = _header(split, model)
     arrays = _arrays(split, pg_mw=pg_mw, vm_pu=vm_pu, va_deg=va_deg, qg_mvar=qg_mvar)
