@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import importlib
 import sys
+import warnings
 
 import click
 
@@ -51,8 +52,14 @@ def cli() -> None:
     """flowgauge: frozen test sets and a deterministic scorer for learned AC optimal power flow."""
 
 
+def _show_warning(message, category, filename, lineno, file=None, line=None) -> None:
+    # Warnings meant for people (a file missing costs, say): one line, no source location.
+    click.echo(f"Warning: {message}", err=True)
+
+
 def main(argv: list[str] | None = None) -> int:
     """Entry point: the one place that turns errors into messages and exit codes."""
+    warnings.showwarning = _show_warning
     try:
         cli.main(args=argv, prog_name="flowgauge", standalone_mode=False)
     except FlowgaugeError as exc:
