@@ -90,8 +90,9 @@ def test_baseline_command(splits, tmp_path, capsys):
     assert not (tmp_path / "x.json").exists()
 
 
-def test_missing_train_split(tmp_path):
+def test_missing_train_split(tmp_path, monkeypatch):
     from flowgauge.splits import build_split
+    monkeypatch.setenv("FLOWGAUGE_SPLITS", str(tmp_path / "no-frozen-splits"))
     lone = tmp_path / "ieee14" / "test-id"
     build_split("ieee14", "test-id", samples=2, seed=9, out=lone)
     with pytest.raises(InputError, match="no frozen split ieee14/train"):
