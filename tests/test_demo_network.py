@@ -38,17 +38,20 @@ def _loading(net, result):
 
 
 def test_demo_is_a_fictional_mid_size_network(demo):
+    # the design brief of the demo network (issue 2): 20-40 buses, fictional, one island
     assert 20 <= demo.n_bus <= 40
     assert demo.provenance["source"] == "fictional network designed for flowgauge; not a real system"
     assert demo.provenance["generated_by"] == "tools/make_demo_network.py"
     assert len(demo.provenance["scenario"]) > 200
     assert set(demo.provenance["bus_names"]) == {str(b) for b in demo.bus_id}
     assert np.count_nonzero(demo.bus_type == BUS_REF) == 1
+    # common practice: every branch of an operated network has a thermal rating
     assert np.all(np.isfinite(demo.rate_mva)) and np.all(demo.rate_mva > 0)
     assert demo.has_costs
 
 
 def test_demo_has_two_voltage_levels_joined_by_tapped_transformers(demo):
+    # common practice: a branch between buses of different base voltage is a transformer
     kv_from = demo.base_kv[demo.f_idx]
     kv_to = demo.base_kv[demo.t_idx]
     transformer = kv_from != kv_to
@@ -61,12 +64,14 @@ def test_demo_has_two_voltage_levels_joined_by_tapped_transformers(demo):
 
 
 def test_demo_generators_have_clearly_different_quadratic_costs(demo):
+    # marginal cost of a quadratic cost curve at full output: c1 + 2 c2 Pmax (common practice)
     marginal_at_full = demo.cost_c1 + 2.0 * demo.cost_c2 * demo.pmax_mw  # [$/MWh]
     assert marginal_at_full.max() / marginal_at_full.min() > 10.0
     assert np.count_nonzero(demo.cost_c2 > 0) >= 5
 
 
 def test_demo_loads_have_different_power_factors(demo):
+    # power factor P / |S| (common practice); industrial loads below 0.85, towns above 0.95
     pf = demo.pd_mw / np.hypot(demo.pd_mw, demo.qd_mvar)
     assert np.unique(np.round(pf, 2)).size >= 5
     assert pf.min() < 0.85 and pf.max() > 0.95

@@ -36,8 +36,8 @@ TRAFO_R_OWN, TRAFO_X_OWN = 0.005, 0.11
 
 # id, name, kV, voltage limits [p.u.], shunt capacitor [MVAr at 1 p.u.]
 BUSES = [
-    (1, "Orbeck Falls 132 kV (hydro station)", 132, 0.95, 1.06, 0.0),
-    (2, "Highmoor 132 kV (switching station)", 132, 0.95, 1.06, 0.0),
+    (1, "Orvanne Falls 132 kV (hydro station)", 132, 0.95, 1.06, 0.0),
+    (2, "Skarrow Ridge 132 kV (switching station)", 132, 0.95, 1.06, 0.0),
     (3, "Tessaford 132 kV", 132, 0.95, 1.06, 0.0),
     (4, "Vellhaven North 132 kV", 132, 0.95, 1.06, 0.0),
     (5, "Vellhaven Harbour 132 kV (gas station)", 132, 0.95, 1.06, 0.0),
@@ -47,8 +47,8 @@ BUSES = [
     (9, "Pennowick 132 kV", 132, 0.95, 1.06, 0.0),
     (10, "Mirrowdale 132 kV", 132, 0.95, 1.06, 0.0),
     (11, "Greyshore 132 kV (wind farm)", 132, 0.95, 1.06, 0.0),
-    (12, "Orbeck Falls 33 kV", 33, 0.94, 1.06, 0.0),
-    (13, "Highmoor 33 kV", 33, 0.94, 1.06, 0.0),
+    (12, "Orvanne Falls 33 kV", 33, 0.94, 1.06, 0.0),
+    (13, "Skarrow Ridge 33 kV", 33, 0.94, 1.06, 0.0),
     (14, "Tessaford 33 kV", 33, 0.94, 1.06, 0.0),
     (15, "Tessaford Sawmill 33 kV (biomass plant)", 33, 0.94, 1.06, 0.0),
     (16, "Vellhaven Old Town 33 kV", 33, 0.94, 1.06, 0.0),
@@ -108,8 +108,8 @@ TRANSFORMERS = [
 
 SCENARIO = (
     "Tarrowmere is a made-up island with 275 MW of demand in the base case. Two hydro units at "
-    "Orbeck Falls in the northern highlands are the cheapest source; their power reaches the south "
-    "over a double-circuit 132 kV corridor to the Highmoor switching station, which congests once "
+    "Orvanne Falls in the northern highlands are the cheapest source; their power reaches the south "
+    "over a double-circuit 132 kV corridor to the Skarrow Ridge switching station, which congests once "
     "demand rises about 10% above the base case. The port town of Vellhaven holds nearly half the "
     "demand and a gas station (combined cycle plus an open-cycle turbine). A geothermal plant at "
     "Cindral, a wind farm at Greyshore and a biomass plant at the Tessaford sawmill add mid-priced "

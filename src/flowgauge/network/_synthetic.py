@@ -202,7 +202,7 @@ def _generators(region: np.ndarray, n_hv: int, load_bus: np.ndarray, pd: np.ndar
     Generators sit at 345 kV buses, an equal share of each region's (``region``: shape (n_bus,),
     region number of each bus), so no area is far from voltage support; capacities are scaled
     per region to CAPACITY_OVER_LOAD times the region's load, so long-distance transfers stay
-    moderate at any size. A region without a generator is served by its neighbours."""
+    moderate at any size."""
     bus = _spread_choice(region[:n_hv], GEN_SHARE * region.size / n_hv, rng)
     n_gen = bus.size
     half_range = np.sqrt(GEN_SIZE_RANGE)
@@ -210,9 +210,9 @@ def _generators(region: np.ndarray, n_hv: int, load_bus: np.ndarray, pd: np.ndar
     n_region = int(region.max()) + 1
     region_load = np.bincount(region[load_bus], weights=pd, minlength=n_region)
     region_size = np.bincount(region[bus], weights=size, minlength=n_region)
-    unserved = region_load[region_size == 0].sum()  # shared out over the other regions
-    scale = CAPACITY_OVER_LOAD * region_load * (1.0 + unserved / (pd.sum() - unserved))
-    pmax = np.round(size * scale[region[bus]] / region_size[region[bus]], 1)
+    # every region holds a generator (_spread_choice), so each one's share is well defined
+    mine = region[bus]
+    pmax = np.round(size * CAPACITY_OVER_LOAD * region_load[mine] / region_size[mine], 1)
     share = np.array([c[0] for c in COST_CLASSES])
     cls = rng.choice(len(COST_CLASSES), n_gen, p=share / share.sum())
     lo = np.array([c[1] for c in COST_CLASSES])[cls]
