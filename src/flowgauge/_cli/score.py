@@ -26,8 +26,8 @@ def _summary_table(card) -> Table:
     a = card.aggregates
     h = card.header
     t = Table(title=f"{h['split']['network']} / {h['split']['split']}: {h['model'].get('name', '')}",
-              show_header=True, header_style="bold")
-    t.add_column("metric (lower is better)")
+              show_header=True, header_style="bold", caption="lower is better; gaps: closer to 0 is better")
+    t.add_column("metric")
     t.add_column("value", justify="right")
     ci = a["ci95"]["restoration_failure_rate"]
     t.add_row("samples", str(a["samples"]))
@@ -137,13 +137,15 @@ def demo(workdir, samples) -> None:
     else:
         result = run(workdir)
     kinds = sorted(set(result.sources.values()))
-    t = Table(title=f"demo network, {' and '.join(kinds)} splits (lower is better)", header_style="bold")
-    for col in ("baseline", "split", "samples", "restoration_failure_rate", "restored_gap_pct mean",
-                "raw_gap_pct mean"):
-        t.add_column(col, justify="left" if col in ("baseline", "split") else "right")
+    t = Table(title=f"demo network, {' and '.join(kinds)} splits", header_style="bold",
+              caption="failure rate: lower is better; gaps: closer to 0 is better")
+    for col in ("baseline", "split", "samples", "failure rate", "main cause", "restored gap %", "raw gap %"):
+        t.add_column(col, justify="left" if col in ("baseline", "split", "main cause") else "right")
     for (name, split), card in result.scorecards.items():
         a = card.aggregates
         rg = a["restored_gap_pct"]
+        causes = sorted(((v, c) for c, v in a["restoration_failure_causes"].items() if v > 0), reverse=True)
         t.add_row(name, split, str(a["samples"]), _pct(a["restoration_failure_rate"]),
-                  "-" if rg is None else _fmt(rg["mean"]), _fmt(a["raw_gap_pct"]["mean"]))
+                  causes[0][1] if causes else "-",
+                  "-" if rg is None else _fmt(rg["mean"], 3), _fmt(a["raw_gap_pct"]["mean"], 3))
     console.print(t)

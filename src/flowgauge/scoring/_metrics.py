@@ -1,7 +1,9 @@
 """Per-sample metric functions on stacked samples.
 
 Every metric takes arrays of shape (n_samples, n_x) and returns one value per sample, shape
-(n_samples,). Lower is better for all of them; 0 is the best value of every violation.
+(n_samples,). Lower is better for all of them except the optimality gap, where closer to 0 is
+better (a negative gap means cheaper than the optimum, which only a limit violation allows);
+0 is the best value of every violation.
 Inputs pass one gate, :func:`check_stacked`, which rejects wrong shapes and non-finite values.
 """
 
@@ -54,8 +56,9 @@ def generator_cost_per_h(pg_mw, *, cost_c2, cost_c1, cost_c0) -> np.ndarray:
 
 
 def optimality_gap_pct(cost_per_h, reference_cost_per_h) -> np.ndarray:
-    """Optimality gap 100 (cost - C*) / |C*| [%], shape (n_samples,). Lower is better; 0 matches
-    the reference; negative means cheaper than the reference (usually by violating limits)."""
+    """Optimality gap 100 (cost - C*) / |C*| [%], shape (n_samples,). Closer to 0 is better; 0
+    matches the reference; negative means cheaper than the reference (only possible by
+    violating a limit or the physics)."""
     cost = check_stacked(cost_per_h, "cost_per_h", ndim=1)
     ref = check_stacked(reference_cost_per_h, "reference_cost_per_h", ndim=1)
     if ref.shape != cost.shape:
@@ -155,7 +158,7 @@ def angle_difference_violation_deg(va_deg, *, f_idx, t_idx, angmin_deg, angmax_d
 
 @dataclass(frozen=True)
 class Metric:
-    """A registered per-sample metric: its function, unit, and direction (all lower is better)."""
+    """A registered per-sample metric: its function, unit, and direction."""
 
     name: str
     func: Callable[..., np.ndarray]
@@ -165,7 +168,7 @@ class Metric:
 
 METRICS: dict[str, Metric] = {m.name: m for m in [
     Metric("generator_cost_per_h", generator_cost_per_h, "$/h"),
-    Metric("optimality_gap_pct", optimality_gap_pct, "%"),
+    Metric("optimality_gap_pct", optimality_gap_pct, "%", "closer to 0 is better"),
     Metric("bound_violation", bound_violation, "unit of the input"),
     Metric("active_balance_residual_mw", active_balance_residual_mw, "MW"),
     Metric("reactive_balance_residual_mvar", reactive_balance_residual_mvar, "MVAr"),
