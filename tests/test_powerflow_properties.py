@@ -116,3 +116,10 @@ def test_batch_needs_stacked_loads():
     with pytest.raises(InputError, match=r"expected shape \(2, 6\), got \(6,\)"):
         solve_powerflow_batch(net, pd_mw=np.stack([net.pd_mw] * 2), qd_mvar=np.stack([net.qd_mvar] * 2),
                               pg_mw=net.pg_mw)
+
+
+def test_empty_batch_gives_empty_arrays():
+    net = load_network("ieee30")
+    b = solve_powerflow_batch(net, pd_mw=np.zeros((0, 20)), qd_mvar=np.zeros((0, 20)))
+    assert b.n_samples == 0
+    assert b.vm_pu.shape == (0, 30) and b.pf_mw.shape == (0, 41) and b.status.shape == (0,)

@@ -165,5 +165,5 @@ def newton(pat: JacobianPattern, ybus: sp.csr_matrix, vm: np.ndarray, va: np.nda
                 va[rows, pvpq] -= dx[:, :npvpq]
                 vm[rows, pq] -= dx[:, npvpq:]
                 vm_a, va_a, sbus_a = vm[active], va[active], sbus[active]
-    status = np.array(STATUS_NAMES, dtype=object)[code].astype(str)
+    status = np.array(STATUS_NAMES)[code]
     return vm, va, iterations, status, max_mis

@@ -103,9 +103,9 @@ def stack_input(name: str, value, default: np.ndarray, n: int, n_samples: int | 
     ``n_samples`` None: a single solve, ``value`` must have shape (n,). Raises
     :class:`InputError` naming ``name`` for a wrong shape or a non-finite entry.
     """
+    rows = 1 if n_samples is None else n_samples
     if value is None:
-        arr = np.asarray(default, float)
-        return np.broadcast_to(arr, (n_samples or 1, n)).copy()
+        return np.broadcast_to(np.asarray(default, float), (rows, n)).copy()
     try:
         arr = np.array(value, dtype=float)
     except (TypeError, ValueError):
@@ -116,7 +116,7 @@ def stack_input(name: str, value, default: np.ndarray, n: int, n_samples: int | 
     bad = np.argwhere(~np.isfinite(arr))
     if bad.size:
         raise InputError(f"non-finite value at index {tuple(int(i) for i in bad[0])}", where=name)
-    return arr.reshape(n_samples or 1, n)
+    return arr.reshape(rows, n)
 
 
 def bus_injection_setpoints(p: Prepared, pg_mw, qg_mvar, pd_mw, qd_mvar) -> np.ndarray:
