@@ -104,3 +104,13 @@ def test_bad_options(tmp_path, monkeypatch):
         score(path, sp, profile="lenient")
     with pytest.raises(InputError, match="cannot connect to a Dask scheduler"):
         score(path, sp, scheduler="tcp://127.0.0.1:9")
+
+
+def test_split_found_by_hash_and_json_equals_parquet(tmp_path, monkeypatch):
+    folder = split_path("ieee14", "test-id")
+    monkeypatch.setenv("FLOWGAUGE_SPLITS", str(folder.parents[1]))  # <root>/<network>/<split>
+    sp = split("ieee14", "test-id")
+    as_json = score(write_reference(sp, tmp_path / "ref.json")).to_bytes()
+    as_parquet = score(write_reference(sp, tmp_path / "ref.parquet", format="parquet")).to_bytes()
+    # the same predictions give the same scorecard bytes whatever the file format
+    assert as_json == as_parquet
