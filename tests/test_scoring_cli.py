@@ -116,3 +116,17 @@ def test_random_mutations_never_show_a_traceback(good, tmp_path, capsys, data):
     assert rc in (0, 2), err
     assert "Traceback" not in err
     assert out.exists() == (rc == 0)
+
+
+def test_unwritable_destination(good, tmp_path, capsys):
+    path, folder = good
+    blocker = tmp_path / "a-file"
+    blocker.write_text("not a folder")
+    assert main(["score", str(path), "--split", str(folder), "--out", str(blocker / "card.json")]) == 2
+    assert re.search(r"a-file/card.json: cannot write here", capsys.readouterr().err)
+    # a failed per-sample write leaves no scorecard either
+    out = tmp_path / "card.json"
+    assert main(["score", str(path), "--split", str(folder), "--out", str(out),
+                 "--per-sample", str(blocker / "rows.parquet")]) == 2
+    assert "cannot write here" in capsys.readouterr().err
+    assert not out.exists()

@@ -95,9 +95,9 @@ def score(file: Path, split_path, out, per_sample, workers: int, scheduler, prof
                                  progress=bar)
     finally:
         bar.stop()
-    card.write(out)
-    if per_sample is not None:
+    if per_sample is not None:  # the scorecard last: it is the run's record of success
         card.write_per_sample(per_sample)
+    card.write(out)
     console.print(_summary_table(card))
     console.print(f"scorecard {out} (hash {card.scorecard_hash[:16]}...)", soft_wrap=True)
 

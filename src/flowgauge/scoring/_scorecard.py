@@ -69,17 +69,22 @@ class Scorecard:
 
     def write(self, path: str | Path) -> Path:
         """Write the canonical JSON scorecard atomically; returns the path."""
-        path = Path(path)
-        atomic_write_bytes(path, self.to_bytes())
-        return path
+        return _write(Path(path), self.to_bytes())
 
     def write_per_sample(self, path: str | Path) -> Path:
         """Write the per-sample table as Parquet, atomically."""
         buf = io.BytesIO()
         self.per_sample.to_parquet(buf, index=False)
-        path = Path(path)
-        atomic_write_bytes(path, buf.getvalue())
-        return path
+        return _write(Path(path), buf.getvalue())
+
+
+def _write(path: Path, data: bytes) -> Path:
+    try:
+        atomic_write_bytes(path, data)
+    except OSError as exc:
+        raise InputError(f"cannot write here ({exc.strerror or exc}); choose a writable file path",
+                         where=str(path)) from exc
+    return path
 
 
 def read_scorecard(path: str | Path) -> dict[str, Any]:
