@@ -45,7 +45,9 @@ def test_references_agree_with_pypower(built):
         r = runopf(to_ppc(s.network, s.pd_mw[i], s.qd_mvar[i]), ppoption(VERBOSE=0, OUT_ALL=0))
         assert r["success"]
         assert s.references.objective[i] == pytest.approx(r["f"], rel=1e-5)
-        np.testing.assert_allclose(s.references.pg_mw[i], r["gen"][:, PG], atol=0.05)
+        # dispatch to 0.2 MW: between generators of equal cost the objective moves by less than
+        # either solver's stopping tolerance (1e-6 relative) for shifts of this size
+        np.testing.assert_allclose(s.references.pg_mw[i], r["gen"][:, PG], atol=0.2)
         np.testing.assert_allclose(s.references.vm_pu[i], r["bus"][:, VM], atol=1e-3)
 
 
@@ -190,3 +192,12 @@ def test_a_network_file_is_stored_with_its_split(tmp_path):
     assert (tmp_path / "s" / "network.json").exists()
     s = load_split(tmp_path / "s")
     assert s.network.name == "island-north" and verify_split(tmp_path / "s").samples == 2
+
+
+def test_unreachable_scheduler_is_one_message_and_leaves_nothing(tmp_path, capsys):
+    out = tmp_path / "x"
+    rc = main(["splits", "build", "ieee14", "--split", "test-id", "--samples", "2", "--seed", "1",
+               "--out", str(out), "--scheduler", "nonsense", "--quiet"])
+    assert rc == 2
+    assert "Error: nonsense: cannot reach the Dask scheduler" in capsys.readouterr().err
+    assert list(tmp_path.iterdir()) == []

@@ -171,12 +171,17 @@ def build_split(network: str | Path | Network, split: str, *, samples: int, seed
     if progress:
         progress(BuildProgress(solved, n_rej, samples, resumed))
     todo = [(job, a, b) for (a, b) in ranges if (a, b) not in done]
-    for (_, a, b), result in run_tasks(solve_chunk, todo, workers=workers, scheduler=scheduler):
-        write_chunk(_chunk_path(chunks_dir, a, b), result)
-        done[(a, b)] = result
-        solved += b - a
-        n_rej += sum(json.loads(str(result["rejected"])).values())
-        if progress:
-            progress(BuildProgress(solved, n_rej, samples, resumed))
+    try:
+        for (_, a, b), result in run_tasks(solve_chunk, todo, workers=workers, scheduler=scheduler):
+            write_chunk(_chunk_path(chunks_dir, a, b), result)
+            done[(a, b)] = result
+            solved += b - a
+            n_rej += sum(json.loads(str(result["rejected"])).values())
+            if progress:
+                progress(BuildProgress(solved, n_rej, samples, resumed))
+    except BaseException:
+        if not done:  # nothing to resume from: leave no trace
+            shutil.rmtree(part, ignore_errors=True)
+        raise
     data, rejected = _assemble([done[r] for r in ranges])
     return _finish(out, part, net, job, split, samples, data, rejected, settings, notes)
