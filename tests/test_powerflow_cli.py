@@ -73,3 +73,13 @@ def test_non_convergence_exit_2(tmp_path, capsys):
     assert cap.out == ""
     assert cap.err.startswith(f"Error: {path}: the power flow did not converge: ")
     assert len(cap.err.strip().splitlines()) == 1
+
+
+def test_malformed_cdf_file_exit_2(tmp_path, capsys):
+    bad = tmp_path / "broken.cdf"
+    bad.write_text("this is not a load-flow data file\n")
+    rc = main(["powerflow", str(bad)])
+    err = capsys.readouterr().err
+    assert rc == 2
+    assert err.startswith(f"Error: {bad}") and "Traceback" not in err
+    assert len(err.strip().splitlines()) == 1
