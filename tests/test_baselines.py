@@ -88,6 +88,10 @@ def test_baseline_command(splits, tmp_path, capsys):
     assert ("The 'name' parameter must be one of ['dc-opf', 'linear', 'nearest']. Got 'oracle' instead."
             in capsys.readouterr().err)
     assert not (tmp_path / "x.json").exists()
+    blocker = tmp_path / "a-file"
+    blocker.write_text("")
+    rc = main(["baseline", "nearest", "--split", str(split_path("ieee14", "test-id")), "--out", str(blocker / "x.json")])
+    assert rc == 2 and "a-file/x.json: cannot write here" in capsys.readouterr().err
 
 
 def test_missing_train_split(tmp_path, monkeypatch):

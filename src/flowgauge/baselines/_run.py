@@ -71,6 +71,10 @@ def write_baseline(name: str, split, out: str | Path, *, train=None, format: str
     pred = predict_baseline(name, split, train=train)
     model = {"name": f"baseline {name}", "authors": ["flowgauge"], "description": BASELINES[name][1],
              "training_data_only": True}
-    write_predictions(split, pg_mw=pred.pg_mw, vm_pu=pred.vm_pu, va_deg=pred.va_deg, qg_mvar=pred.qg_mvar,
-                      model=model, path=out, format=format)
+    try:
+        write_predictions(split, pg_mw=pred.pg_mw, vm_pu=pred.vm_pu, va_deg=pred.va_deg, qg_mvar=pred.qg_mvar,
+                          model=model, path=out, format=format)
+    except OSError as exc:
+        raise InputError(f"cannot write here ({exc.strerror or exc}); choose a writable file path",
+                         where=str(out)) from exc
     return Path(out)
