@@ -34,7 +34,7 @@ metric = "restoration_failure_rate"
 direction = "lower"
 
 [[keys]]
-metric = "restored_gap_pct_mean"
+metric = "restored_gap_pct_abs_mean"
 direction = "lower"
 
 [ties]
@@ -168,6 +168,19 @@ def test_rank_table_ties_neighbours_and_orders_by_keys():
     assert t.unranked == (("eps", "no submission for test-ood, test-edge"),)
 
 
+def test_absolute_gap_key_does_not_let_signs_cancel():
+    n = 4
+    # hand calculation: gaps +2, -2, +2, -2 have mean 0 but mean |gap| 2; gaps 1, 1, null, 1
+    # have mean |gap| 1 (the null sample, a diverged restoration, is left out)
+    spec = {"swings": {"test-id": (np.zeros(n), [2.0, -2.0, 2.0, -2.0])},
+            "steady": {"test-id": (np.zeros(n), [1.0, 1.0, np.nan, 1.0])}}
+    rules = _rules(**{'splits = ["test-id", "test-ood", "test-edge"]': 'splits = ["test-id"]'})
+    t = rank_table("ieee14", "test-id", ("test-id",), entries_from(spec), rules)
+    assert [(s.entry, s.values[1]) for s in t.standings] == [("steady", 1.0), ("swings", 2.0)]
+    # same failure rate (0): the tie test on the first key ties them
+    assert [s.rank for s in t.standings] == [1, 1]
+
+
 def test_rank_table_higher_is_better_direction():
     n = 50
     spec = {"a": {"test-id": (np.zeros(n), np.full(n, 1.0))},
@@ -195,16 +208,16 @@ def test_rules_parse_and_hash():
     rules = parse_rules(RULES)
     assert rules.splits == SPLITS and rules.networks is None
     assert [(k.metric, k.direction) for k in rules.keys] == [
-        ("restoration_failure_rate", "lower"), ("restored_gap_pct_mean", "lower")]
+        ("restoration_failure_rate", "lower"), ("restored_gap_pct_abs_mean", "lower")]
     # SHA-256 of the exact bytes (hashlib is the reference)
     import hashlib
     assert rules.sha256 == hashlib.sha256(RULES).hexdigest()
 
 
 @pytest.mark.parametrize("old, new, message", [
-    ('metric = "restored_gap_pct_mean"', 'metric = "speed"',
+    ('metric = "restored_gap_pct_abs_mean"', 'metric = "speed"',
      r"rules.toml: keys\[1\]: metric must be one of \['raw_gap_pct_mean', 'restoration_failure_rate', "
-     r"'restored_gap_pct_mean'\]; got 'speed'"),
+     r"'restored_gap_pct_abs_mean', 'restored_gap_pct_mean'\]; got 'speed'"),
     ('direction = "lower"\n\n[ties]', 'direction = "down"\n\n[ties]',
      r"rules.toml: keys\[1\]: direction must be one of \['lower', 'higher'\]; got 'down'"),
     ("resamples = 1000", "resamples = 5", r"rules.toml: ties.resamples: expected an integer in "
@@ -295,7 +308,7 @@ def test_latex_uses_booktabs_and_escapes():
     assert [m for m in re.findall(r"\\(toprule|midrule|bottomrule)", body)] == [
         "toprule", "midrule", "bottomrule"]
     assert r"test-id & test-ood & test-edge" in body
-    assert "mean restored gap [\\%]" in body  # "%" escaped for LaTeX
+    assert r"mean \textbar{}restored gap\textbar{} [\%]" in body  # "|" and "%" escaped for LaTeX
     # every data row has as many cells as the column spec: rank, entry, 3 splits, 2 keys
     rows = [l for l in body.splitlines() if l.strip().endswith(r"\\")]
     assert all(l.count("&") == 6 for l in rows) and len(rows) == 4

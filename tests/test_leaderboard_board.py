@@ -28,7 +28,7 @@ metric = "restoration_failure_rate"
 direction = "lower"
 
 [[keys]]
-metric = "restored_gap_pct_mean"
+metric = "restored_gap_pct_abs_mean"
 direction = "lower"
 
 [ties]

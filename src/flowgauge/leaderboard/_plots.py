@@ -40,8 +40,8 @@ def _value(card: dict, metric: str) -> float:
 
 
 def tradeoff_svg(network: str, entries: dict, splits: tuple[str, ...], order: list[str]) -> str:
-    """Mean restored gap [%] against restoration failure rate, one colour per entry, one
-    marker per split, and a larger ringed marker for the mean over the splits."""
+    """Mean absolute restored gap [%] against restoration failure rate, one colour per entry,
+    one marker per split, and a larger ringed marker for the mean over the splits."""
     with matplotlib.rc_context({**_RC, "svg.hashsalt": f"flowgauge-{network}-tradeoff"}):
         fig = Figure(figsize=(6.4, 4.0))
         ax = fig.add_subplot()
@@ -55,7 +55,7 @@ def tradeoff_svg(network: str, entries: dict, splits: tuple[str, ...], order: li
                 if sc is None:
                     continue
                 x = _value(sc.card, "restoration_failure_rate")
-                y = _value(sc.card, "restored_gap_pct_mean")
+                y = _value(sc.card, "restored_gap_pct_abs_mean")
                 xs.append(x)
                 ys.append(y)
                 ax.scatter([x], [y], color=_colour(i), marker=_MARKERS[j % len(_MARKERS)], s=30,
@@ -67,7 +67,7 @@ def tradeoff_svg(network: str, entries: dict, splits: tuple[str, ...], order: li
                             color=_colour(i))
         ax.margins(x=0.18, y=0.15)  # room for the entry labels beside the rings
         ax.set_xlabel("restoration failure rate (lower is better)")
-        ax.set_ylabel("mean restored gap [%] (lower is better)")
+        ax.set_ylabel("mean |restored gap| [%] (lower is better)")
         ax.set_title(f"{network}: restored gap against restoration failure rate")
         ax.grid(True, lw=0.4, alpha=0.5)
         if names:

@@ -10,7 +10,7 @@ import numpy as np
 
 from ..errors import InputError
 from ._rules import METRICS, Rules
-from ._ties import competition_ranks, paired_bootstrap_interval
+from ._ties import competition_ranks, paired_bootstrap_interval, split_mean
 
 __all__ = ["Scored", "Standing", "RankTable", "rank_table", "metric_value", "per_sample_column"]
 
@@ -51,9 +51,14 @@ class RankTable:
 
 
 def metric_value(card: dict, metric: str) -> float:
-    """The scorer's per-split value of a key metric (NaN when the scorecard has null)."""
+    """The scorer's per-split value of a key metric (NaN when the scorecard has null); for an
+    ``absolute`` metric, the mean of the absolute per-sample values."""
+    spec = METRICS[metric]
+    if spec.aggregate is None:
+        _, values = per_sample_column(Scored("scorecard", card), spec.per_sample)
+        return float(split_mean(np.abs(values), skip_null=spec.skip_null))
     value = card["aggregates"]
-    for part in METRICS[metric].aggregate:
+    for part in spec.aggregate:
         value = value[part] if isinstance(value, dict) else None
     return float("nan") if value is None else float(value)
 
@@ -102,7 +107,8 @@ def rank_table(
               for name, cards in complete.items()}
     order = sorted(complete, key=lambda n: _sort_key(values[n], rules, n))
     primary = METRICS[rules.keys[0].metric]
-    columns = {n: _aligned(complete[n], primary.per_sample, complete[order[0]]) for n in order}
+    columns = {n: _aligned(complete[n], primary.per_sample, complete[order[0]], primary.absolute)
+               for n in order}
     cis: list[tuple[float, float] | None] = [None]
     for above, below in zip(order, order[1:]):
         cis.append(paired_bootstrap_interval(
@@ -115,11 +121,13 @@ def rank_table(
     return RankTable(network, scope, splits, standings, tuple(unranked))
 
 
-def _aligned(cards: list[Scored], column: str, reference: list[Scored]) -> list[np.ndarray]:
+def _aligned(cards: list[Scored], column: str, reference: list[Scored],
+             absolute: bool) -> list[np.ndarray]:
     """Per-split value arrays, checked to cover the same sample ids as the reference entry."""
     out = []
     for scored, ref in zip(cards, reference):
         ids, vals = per_sample_column(scored, column)
+        vals = np.abs(vals) if absolute else vals
         ref_ids, _ = per_sample_column(ref, column)
         if ids.shape != ref_ids.shape or not np.array_equal(ids, ref_ids):
             raise InputError(f"per_sample sample ids differ from those of {ref.where}; "

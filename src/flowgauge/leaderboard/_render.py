@@ -83,7 +83,8 @@ def _num(v) -> str:
     return f"{round_sig(float(v)):.10g}"
 
 
-_DIGITS = {"restoration_failure_rate": 4, "restored_gap_pct_mean": 3, "raw_gap_pct_mean": 3}
+_DIGITS = {"restoration_failure_rate": 4, "restored_gap_pct_mean": 3,
+           "restored_gap_pct_abs_mean": 3, "raw_gap_pct_mean": 3}
 
 
 def _ci_text(ci, digits: int) -> str:
@@ -183,7 +184,8 @@ def _slug(text: str) -> str:
 def _tex_escape(text) -> str:
     repl = {"\\": r"\textbackslash{}", "&": r"\&", "%": r"\%", "$": r"\$", "#": r"\#",
             "_": r"\_", "{": r"\{", "}": r"\}", "~": r"\textasciitilde{}",
-            "^": r"\textasciicircum{}"}
+            "^": r"\textasciicircum{}", "|": r"\textbar{}", "<": r"\textless{}",
+            ">": r"\textgreater{}"}
     return "".join(repl.get(c, c) for c in str(text))
 
 

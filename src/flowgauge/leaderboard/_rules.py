@@ -17,13 +17,17 @@ __all__ = ["METRICS", "DIRECTIONS", "MetricSpec", "RankKey", "Rules", "load_rule
 class MetricSpec:
     """A rankable metric: where its per-split value sits in a scorecard's ``aggregates`` and
     which ``per_sample`` column it is the mean of (``skip_null``: samples with a null value,
-    e.g. a diverged restoration power flow, are left out of the mean)."""
+    e.g. a diverged restoration power flow, are left out of the mean). With ``absolute`` the
+    value is the mean of the column's absolute values, computed from ``per_sample``: a gap is
+    better the closer it is to 0, and a negative gap (cheaper than the optimum) only comes with
+    a violated limit, so gaps of opposite signs must not cancel."""
 
-    aggregate: tuple[str, ...]
+    aggregate: tuple[str, ...] | None
     per_sample: str
     skip_null: bool
     label: str
     ci95: str | None
+    absolute: bool = False  # the mean of |per-sample value| (no aggregate field holds it)
 
 
 # metric name -> where to find it; the names are those of the scorecard fields they read
@@ -34,6 +38,8 @@ METRICS = {
     "restored_gap_pct_mean": MetricSpec(
         ("restored_gap_pct", "mean"), "restored_gap_pct", True,
         "mean restored gap [%]", "restored_gap_pct_mean"),
+    "restored_gap_pct_abs_mean": MetricSpec(
+        None, "restored_gap_pct", True, "mean |restored gap| [%]", None, absolute=True),
     "raw_gap_pct_mean": MetricSpec(
         ("raw_gap_pct", "mean"), "raw_gap_pct", True, "mean raw gap [%]", None),
 }
