@@ -91,44 +91,61 @@ def _chunks(n: int) -> list[slice]:
     return [slice(i, min(i + CHUNK_SAMPLES, n)) for i in range(0, n, CHUNK_SAMPLES)]
 
 
+# The network of this worker process, set once by the pool's initializer so that the power
+# flow's per-network preparation (admittances, Jacobian pattern, ordering) is reused by every
+# chunk the process solves.
+_WORKER_NET: Network | None = None
+
+
+def _init_worker(net: Network) -> None:
+    global _WORKER_NET
+    _WORKER_NET = net
+
+
+def _solve_in_worker(pd_mw, qd_mvar, pg_mw, vm_pu, powerflow: dict) -> dict[str, np.ndarray]:
+    return solve_restoration_chunk(_WORKER_NET, pd_mw, qd_mvar, pg_mw, vm_pu, powerflow)
+
+
+def _connect(scheduler: str):
+    try:
+        from distributed import Client
+    except ImportError as exc:  # pragma: no cover - depends on the installed extras
+        raise InputError("needs Dask: pip install 'flowgauge[cluster]'", where="--scheduler") from exc
+    try:
+        return Client(scheduler, timeout=SCHEDULER_TIMEOUT_S, set_as_default=False)
+    except (OSError, TimeoutError, ValueError) as exc:
+        raise InputError(f"cannot connect to a Dask scheduler ({exc})", where=f"--scheduler {scheduler}") from exc
+
+
 def _run_chunks(net, arrays, powerflow, workers, scheduler, progress) -> list[dict]:
-    pieces = _chunks(arrays[0].shape[0])
-    args = [(net, *(a[s] for a in arrays), powerflow) for s in pieces]
-    done = 0
+    n = arrays[0].shape[0]
+    pieces = _chunks(n)
+    parts = [tuple(a[s] for a in arrays) for s in pieces]
     out: list[dict] = []
 
-    def tick(k):
-        nonlocal done
-        done += k
-        if progress is not None:
-            progress(done, arrays[0].shape[0])
+    def collect(results):
+        done = 0
+        for s, res in zip(pieces, results):
+            out.append(res)
+            done += s.stop - s.start
+            if progress is not None:
+                progress(done, n)
 
     if scheduler is not None:
+        client = _connect(scheduler)
         try:
-            from distributed import Client
-        except ImportError as exc:  # pragma: no cover - depends on the installed extras
-            raise InputError("needs Dask: pip install 'flowgauge[cluster]'", where="--scheduler") from exc
-        try:
-            client = Client(scheduler, timeout=SCHEDULER_TIMEOUT_S, set_as_default=False)
-        except (OSError, TimeoutError, ValueError) as exc:
-            raise InputError(f"cannot connect to a Dask scheduler ({exc})", where=f"--scheduler {scheduler}") from exc
-        try:
-            futures = [client.submit(solve_restoration_chunk, *a, pure=False) for a in args]
-            for s, fut in zip(pieces, futures):
-                out.append(fut.result())
-                tick(s.stop - s.start)
+            # the network goes to every worker once; each chunk refers to that same copy
+            net_future = client.scatter(net, broadcast=True)
+            futures = [client.submit(solve_restoration_chunk, net_future, *p, powerflow, pure=False) for p in parts]
+            collect(f.result() for f in futures)
         finally:
             client.close()
     elif workers > 1 and len(pieces) > 1:
-        with ProcessPoolExecutor(max_workers=workers) as pool:
-            futures = [pool.submit(solve_restoration_chunk, *a) for a in args]
-            for s, fut in zip(pieces, futures):
-                out.append(fut.result())
-                tick(s.stop - s.start)
+        with ProcessPoolExecutor(max_workers=workers, initializer=_init_worker, initargs=(net,)) as pool:
+            futures = [pool.submit(_solve_in_worker, *p, powerflow) for p in parts]
+            collect(f.result() for f in futures)
     else:
-        for s, a in zip(pieces, args):
-            out.append(solve_restoration_chunk(*a))
-            tick(s.stop - s.start)
+        collect(solve_restoration_chunk(net, *p, powerflow) for p in parts)
     return out
 
 
