@@ -74,7 +74,7 @@ class _LazyProgress:
 @click.command()
 @click.argument("file", type=click.Path(dir_okay=False, path_type=Path))
 @click.option("--split", "split_path", type=click.Path(path_type=Path), default=None,
-              help="Split folder (default: found from the split hash in the file's header).")
+              help="Split folder or NETWORK/SPLIT (default: found from the split hash in the file's header).")
 @click.option("--out", type=click.Path(dir_okay=False, path_type=Path), default=None,
               help="Scorecard path (default: FILE with the suffix .scorecard.json).")
 @click.option("--per-sample", type=click.Path(dir_okay=False, path_type=Path), default=None,
@@ -105,11 +105,11 @@ def score(file: Path, split_path, out, per_sample, workers: int, scheduler, prof
 @click.command()
 @click.argument("name")
 @click.option("--split", "split_path", required=True, type=click.Path(path_type=Path),
-              help="Split folder to predict.")
+              help="Split to predict: a split folder or NETWORK/SPLIT.")
 @click.option("--out", required=True, type=click.Path(dir_okay=False, path_type=Path),
               help="Predictions file to write.")
 @click.option("--train", "train_path", type=click.Path(path_type=Path), default=None,
-              help="Training split folder (default: the sibling train split, else the frozen one).")
+              help="Training split: folder or NETWORK/SPLIT (default: the sibling train split, else the frozen one).")
 @click.option("--format", "fmt", type=click.Choice(["json", "parquet"]), default="json", show_default=True)
 def baseline(name: str, split_path: Path, out: Path, train_path, fmt: str) -> None:
     """Write the predictions of baseline NAME (dc-opf, nearest, linear) for a split."""
