@@ -134,7 +134,7 @@ def _factor(problem: Problem, lam, mu_h, d_h, d_x, delta: float):
         w = problem.kkt_matrix(lam, mu_h, d_h, d_x + (delta + reg), reg)
         try:
             with np.errstate(all="ignore"):
-                lu = spla.splu(w, permc_spec="MMD_AT_PLUS_A", diag_pivot_thresh=0.1)
+                lu = spla.splu(w, permc_spec="COLAMD", diag_pivot_thresh=0.1)
         except RuntimeError:
             continue
         return lu.solve, w
