@@ -12,8 +12,7 @@ from typing import Any
 import numpy as np
 
 from ..errors import InputError
-from ..network import Network, load_network
-from ..network import bundled_names
+from ..network import Network, bundled_names, load_network
 from ._manifest import SPLIT_NAMES, network_hash, read_manifest
 from ._store import (MANIFEST_FILE, References, inputs_from_table,
                      read_table, references_from_table)
