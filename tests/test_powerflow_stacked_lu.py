@@ -11,9 +11,13 @@ from flowgauge.powerflow._newton import LINEAR_SOLVERS, stacked_lu
 from flowgauge.powerflow._prepare import prepared
 
 
-@pytest.fixture(scope="module", params=["ieee14", "ieee300"])
+@pytest.fixture(scope="module", params=["ieee14", "ieee300", "synthetic2000"])
 def pattern(request):
-    net = load_network(request.param)
+    if request.param == "synthetic2000":  # large enough for long chains of fill-in
+        from flowgauge.network import synthetic
+        net = synthetic(2000, 1)
+    else:
+        net = load_network(request.param)
     p = prepared(net)
     return net, p, p.pattern(p.pv, p.pq)
 

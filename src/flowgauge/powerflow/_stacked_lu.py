@@ -4,9 +4,10 @@ The Newton steps of a batch all use Jacobians with the same pattern. Factorising
 one with SuperLU costs hundreds of microseconds each, mostly overhead for such small matrices.
 Here the symbolic work is done once per pattern:
 
-* a fill-reducing symmetric ordering (minimum degree on A + A^T) and the filled pattern of
-  L and U, both taken from one SuperLU factorisation of a diagonally dominant matrix with the
-  pattern, where the diagonal pivots are kept;
+* a fill-reducing symmetric ordering (minimum degree on A + A^T), taken from one SuperLU
+  factorisation of a diagonally dominant matrix with the pattern, where the diagonal pivots
+  are kept, and the filled pattern of L and U for that ordering (symbolic elimination, see
+  :func:`_filled_lower`);
 * the elimination schedule: pivot k must come after every pivot k' with L[k, k'] != 0; pivots
   of the same level are independent, so each level is one vectorised step over all its
   pivots and all samples (the pattern is structurally symmetric, as a power-flow Jacobian is).
@@ -36,6 +37,23 @@ def _ones(rows: np.ndarray, n_rows: int) -> sp.csr_matrix:
     return sp.csr_matrix((np.ones(rows.size), (rows, np.arange(rows.size))), shape=(n_rows, rows.size))
 
 
+def _filled_lower(n: int, rows: np.ndarray, cols: np.ndarray) -> sp.coo_matrix:
+    """Strict lower triangle of the filled pattern of a structurally symmetric matrix with
+    entries (rows, cols), eliminated in index order: (i, j) fills when some k < min(i, j) has
+    (i, k) and (j, k). Computed as a fixed point of sparse products (starting from SuperLU's
+    pattern, which is nearly complete, it takes one or two rounds)."""
+    lo, hi = np.maximum(rows, cols), np.minimum(rows, cols)
+    keep = lo != hi
+    low = sp.csr_matrix((np.ones(int(keep.sum())), (lo[keep], hi[keep])), shape=(n, n))
+    low.data[:] = 1.0
+    while True:
+        grown = low + sp.tril(low @ low.T, -1)
+        grown.data[:] = 1.0
+        if grown.nnz == low.nnz:
+            return low.tocoo()
+        low = grown
+
+
 class StackedLU:
     """Factor-and-solve for a stack of matrices with the CSC pattern of ``pat``."""
 
@@ -50,16 +68,18 @@ class StackedLU:
             raise RuntimeError("diagonal pivots were not kept")
         self.new_of_old = lu.perm_c.astype(np.int64)
         self.old_of_new = np.argsort(self.new_of_old)
-        lo = sp.tril(lu.L, -1).tocoo()
-        up = sp.triu(lu.U).tocoo()
-        rows = np.r_[lo.row, up.row].astype(np.int64)
-        cols = np.r_[lo.col, up.col].astype(np.int64)
+        jcol = np.repeat(np.arange(n), np.diff(pat.indptr))
+        r, c = self.new_of_old[pat.indices], self.new_of_old[jcol]
+        lr, lc, _ = sp.find(lu.L)
+        ur, uc, _ = sp.find(lu.U)
+        lower = _filled_lower(n, np.r_[lr, ur, r], np.r_[lc, uc, c])
+        rows = np.r_[lower.row, lower.col, np.arange(n)]
+        cols = np.r_[lower.col, lower.row, np.arange(n)]
         keys = np.sort(rows * n + cols)
         self.nnz = keys.size
         self._find = lambda r, c: np.searchsorted(keys, r * n + c)
+        self._keys = keys
         # where each Jacobian entry goes in the filled pattern
-        jcol = np.repeat(np.arange(n), np.diff(pat.indptr))
-        r, c = self.new_of_old[pat.indices], self.new_of_old[jcol]
         self.j_to_f = self._find(r, c)
         if not np.array_equal(keys[self.j_to_f], r * n + c):
             raise RuntimeError("the filled pattern does not contain the matrix")
@@ -90,6 +110,8 @@ class StackedLU:
         first = np.repeat(np.cumsum(reps) - reps, reps)
         b = upp_s[np.repeat(u_start[lk], reps) + np.arange(a.size) - first]
         t = self._find(fr[a], fc[b])
+        if not np.array_equal(self._keys[np.minimum(t, self.nnz - 1)], fr[a] * n + fc[b]):
+            raise RuntimeError("an update falls outside the filled pattern")
         k_of_update = fc[a]
         self.factor_steps, self.forward_steps, self.backward_steps = [], [], []
         for lev in range(self.n_levels):  # loop over elimination levels, each vectorised
