@@ -126,11 +126,15 @@ def _mismatch(adm, vm, va, pv, pq):
     return np.r_[s.real[np.r_[pv, pq]], s.imag[pq]]
 
 
-@settings(max_examples=8, deadline=None)
-@given(name=st.sampled_from(["ieee14", "ieee57", "ieee300"]), seed=st.integers(0, 2**31 - 1))
+@settings(max_examples=10, deadline=None)
+@given(name=st.sampled_from(["synthetic", "ieee14", "ieee57", "ieee300"]), seed=st.integers(0, 2**31 - 1))
 def test_jacobian_agrees_with_central_differences(name, seed):
     # property: the analytic Jacobian equals central finite differences of the mismatch
-    net = load_network(name)
+    if name == "synthetic":
+        from flowgauge.network import synthetic
+        net = synthetic(50 + seed % 100, seed % 1000)
+    else:
+        net = load_network(name)
     adm = admittance(net)
     vm, va = _random_voltages(net, seed, n=1)
     vm, va = vm[0], va[0]
