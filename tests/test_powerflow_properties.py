@@ -123,3 +123,15 @@ def test_empty_batch_gives_empty_arrays():
     b = solve_powerflow_batch(net, pd_mw=np.zeros((0, 20)), qd_mvar=np.zeros((0, 20)))
     assert b.n_samples == 0
     assert b.vm_pu.shape == (0, 30) and b.pf_mw.shape == (0, 41) and b.status.shape == (0,)
+
+
+def test_chunked_batch_gives_identical_results(monkeypatch):
+    import flowgauge.powerflow._ac as ac
+    net = load_network("ieee57")
+    pd, qd = _loads(net, 7, 9)
+    whole = solve_powerflow_batch(net, pd_mw=pd, qd_mvar=qd)
+    monkeypatch.setattr(ac, "BATCH_ENTRIES", 4 * 5000)  # a few samples per chunk
+    chunked = solve_powerflow_batch(net, pd_mw=pd, qd_mvar=qd)
+    assert chunked.iterations.tolist() == whole.iterations.tolist()
+    np.testing.assert_array_equal(chunked.vm_pu, whole.vm_pu)
+    np.testing.assert_array_equal(chunked.pf_mw, whole.pf_mw)

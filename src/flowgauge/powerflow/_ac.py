@@ -10,7 +10,7 @@ import numpy as np
 from ..errors import InputError
 from ..network._model import Network
 from ._dc import dc_angles, reference_pg
-from ._newton import LINEAR_SOLVERS, newton
+from ._newton import LINEAR_SOLVERS, newton, stacked_lu
 from ._prepare import Prepared, bus_injection_setpoints, prepared, stack_input
 from ._result import BatchPowerFlowResult, PowerFlowResult
 from ._status import CONVERGED, STATUSES
@@ -19,6 +19,8 @@ __all__ = ["solve_powerflow", "solve_powerflow_batch", "INITS", "default_vm_pu"]
 
 INITS = ("flat", "dc", "given")
 _EPS = np.finfo(float).eps
+# Samples per Newton chunk: at most this many float entries in the largest working array.
+BATCH_ENTRIES = 2.5e7
 # A reactive output beyond its limit by more than this counts as a violation [MVAr].
 Q_LIMIT_SLACK_MVAR = 5e-6
 
@@ -98,9 +100,18 @@ def _assemble(p: Prepared, vm, va, pg, qg_set, pd, qd, fixed_q) -> dict:
 
 
 def _run(p, pv, pq, vm0, va0, pg, qg, pd, qd, tol, max_iter, linear):
+    """Newton-Raphson for all samples, in chunks that keep the working arrays bounded."""
     sbus = bus_injection_setpoints(p, pg, qg, pd, qd)
     pat = p.pattern(pv, pq)
-    return newton(pat, p.adm.ybus, vm0, va0, sbus, tol, int(max_iter), linear)
+    lu = stacked_lu(pat) if linear == "stacked" else None
+    per_sample = max(lu.nnz if lu is not None else 0, 4 * pat.nnz)
+    rows = max(1, int(BATCH_ENTRIES // per_sample))
+    n_s = sbus.shape[0]
+    if n_s <= rows:
+        return newton(pat, p.adm.ybus, vm0, va0, sbus, tol, int(max_iter), linear)
+    parts = [newton(pat, p.adm.ybus, vm0[i:i + rows], va0[i:i + rows], sbus[i:i + rows], tol,
+                    int(max_iter), linear) for i in range(0, n_s, rows)]  # loop over chunks of samples
+    return tuple(np.concatenate([part[k] for part in parts]) for k in range(5))
 
 
 def solve_powerflow_batch(net: Network, *, pd_mw, qd_mvar, pg_mw=None, vm_pu=None, va_deg=None,
