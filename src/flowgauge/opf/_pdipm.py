@@ -221,6 +221,9 @@ def interior_point(problem: Problem, x0: np.ndarray, settings: OPFSettings,
             status = "iteration_limit"
             break
         it += 1
+        # the barrier never falls far below what the complementarity test needs, so the
+        # Newton matrix keeps its conditioning while the other tests are being met
+        floor = settings.barrier_floor * settings.complementarity_tol * (1.0 + norm_x) / max(n_in, 1)
         zinv = 1.0 / z
         d = mu * zinv
         delta = 0.0
@@ -257,7 +260,7 @@ def interior_point(problem: Problem, x0: np.ndarray, settings: OPFSettings,
             mean = float(z @ mu) / n_in
             mean_aff = float((z + ap * dz) @ (mu + ad * dmu)) / n_in
             sigma = min(1.0, (mean_aff / mean) ** 3) if mean > 0 else 0.0
-            corrected = direction(sigma * mean - dz * dmu)
+            corrected = direction(max(sigma * mean, floor) - dz * dmu)
             if _max_step(z, corrected[2], xi) >= settings.corrector_min_step:
                 dx, dlam, dz, dmu = corrected
             else:  # the corrected step is short: take a plain centred step instead
@@ -276,7 +279,7 @@ def interior_point(problem: Problem, x0: np.ndarray, settings: OPFSettings,
         lam = lam + ad * dlam
         mu = mu + ad * dmu
         if n_in:
-            gamma = settings.centering * float(z @ mu) / n_in
+            gamma = max(settings.centering * float(z @ mu) / n_in, floor)
         f_prev = f
         f, g, h = problem.evaluate(x)
         hb = np.concatenate([h, bounds.values(x)])

@@ -43,6 +43,9 @@ class OPFSettings:
     ``predictor_corrector``: use Mehrotra's predictor-corrector steps (True) or a fixed
     centering factor (False); ``corrector_min_step``: when the corrected step is shorter
     than this fraction, a plain step with the fixed centering factor is taken instead.
+    ``barrier_floor``: the barrier target never falls below this fraction of the mean
+    complementarity that the complementarity test accepts (keeps the Newton matrix well
+    conditioned near degenerate solutions, e.g. close to maximum loadability).
     ``cost_scale``: factor applied to the objective inside the solver for better conditioning
     (results are reported unscaled; the complementarity and dual-infeasibility tests use the
     scaled objective).
@@ -52,7 +55,7 @@ class OPFSettings:
 
     feasibility_tol: float = 1e-6
     gradient_tol: float = 1e-6
-    complementarity_tol: float = 1e-8
+    complementarity_tol: float = 1e-10
     cost_tol: float = 1e-6
     max_iter: int = 150
     step_to_boundary: float = 0.99995
@@ -61,6 +64,7 @@ class OPFSettings:
     binding_tol: float = 1e-4
     predictor_corrector: bool = True
     corrector_min_step: float = 0.5
+    barrier_floor: float = 0.5
     cost_scale: float = 1e-4
     stall_iterations: int = 25
     multiplier_limit: float = 1e8
