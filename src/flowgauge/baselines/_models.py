@@ -14,7 +14,7 @@ from scipy.spatial import cKDTree
 from ..errors import InputError
 from ..network import Network
 
-__all__ = ["Prediction", "dc_opf", "nearest", "linear", "RIDGE_ALPHA"]
+__all__ = ["Prediction", "dc_opf", "nearest", "linear", "network_voltage_setpoints", "RIDGE_ALPHA"]
 
 # Ridge penalty on standardised loads: small enough to follow the data, large enough to keep the
 # normal equations well conditioned when loads move together (common practice).
