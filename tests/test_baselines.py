@@ -101,3 +101,14 @@ def test_missing_train_split(tmp_path, monkeypatch):
     build_split("ieee14", "test-id", samples=2, seed=9, out=lone)
     with pytest.raises(InputError, match="no frozen split ieee14/train"):
         predict_baseline("nearest", lone)
+
+
+def test_dc_opf_prediction_shape_and_setpoints(splits):
+    sp = splits["test-id"]
+    pred = predict_baseline("dc-opf", sp)
+    # Voltage setpoints of the IEEE 14-bus case's generator buses 1, 2, 3, 6, 8 (PYPOWER case14 gen VG):
+    # 1.06, 1.045, 1.01, 1.07, 1.09 p.u.
+    np.testing.assert_allclose(pred.vm_pu[:, [0, 1, 2, 5, 7]], np.tile([1.06, 1.045, 1.01, 1.07, 1.09], (20, 1)))
+    # The DC power flow is lossless (common practice): generation equals load in every sample.
+    np.testing.assert_allclose(pred.pg_mw.sum(axis=1), sp.pd_mw.sum(axis=1), rtol=1e-6)
+    assert pred.va_deg is None and pred.qg_mvar is None
