@@ -88,20 +88,20 @@ def _assemble(p: Prepared, vm, va, pg, qg_set, pd, qd, fixed_q) -> dict:
     net, adm, base = p.net, p.adm, p.net.base_mva
     v = vm * np.exp(1j * va)
     s_inj = v * np.conj((adm.ybus @ v.T).T) * base
-    pd_bus = (adm.cl @ pd.T).T
-    qd_bus = (adm.cl @ qd.T).T
-    pg_out = reference_pg(p, pg, s_inj.real, pd_bus)
-    qg_out = _share_q(p, s_inj.imag + qd_bus, qg_set, fixed_q)
-    sf = (adm.cf @ v.T).T * np.conj((adm.yf @ v.T).T) * base
-    st = (adm.ct @ v.T).T * np.conj((adm.yt @ v.T).T) * base
+    sd_bus = (adm.cl @ (pd + 1j * qd).T).T
+    pg_out = reference_pg(p, pg, s_inj.real, sd_bus.real)
+    qg_out = _share_q(p, s_inj.imag + sd_bus.imag, qg_set, fixed_q)
+    i_br = np.conj((p.branch_currents @ v.T).T)
+    nl = net.n_branch
+    sf = v[:, net.f_idx] * i_br[:, :nl] * base
+    st = v[:, net.t_idx] * i_br[:, nl:] * base
     return dict(vm_pu=vm, va_deg=np.rad2deg(va), pg_mw=pg_out, qg_mvar=qg_out,
                 pf_mw=sf.real, qf_mvar=sf.imag, pt_mw=st.real, qt_mvar=st.imag,
                 sf_mva=np.abs(sf), st_mva=np.abs(st))
 
 
-def _run(p, pv, pq, vm0, va0, pg, qg, pd, qd, tol, max_iter, linear):
+def _run(p, pv, pq, vm0, va0, sbus, tol, max_iter, linear):
     """Newton-Raphson for all samples, in chunks that keep the working arrays bounded."""
-    sbus = bus_injection_setpoints(p, pg, qg, pd, qd)
     pat = p.pattern(pv, pq)
     lu = stacked_lu(pat) if linear == "stacked" else None
     per_sample = max(lu.nnz if lu is not None else 0, 4 * pat.nnz)
@@ -146,10 +146,10 @@ def solve_powerflow_batch(net: Network, *, pd_mw, qd_mvar, pg_mw=None, vm_pu=Non
     vm = stack_input("vm_pu", vm_pu, default_vm_pu(net), net.n_bus, n_s)
     va_in = None if va_deg is None else stack_input("va_deg", va_deg, net.va_deg, net.n_bus, n_s)
     qg = np.broadcast_to(net.qg_mvar, pg.shape).copy()
-    fixed = np.broadcast_to(~np.isin(net.gen_bus_idx, np.r_[p.pv, p.ref]), pg.shape)
-    p_spec = bus_injection_setpoints(p, pg, qg, pd, qd).real
-    va0 = _start_angles(p, init, va_in, p_spec)
-    vm_s, va_s, its, status, mis = _run(p, p.pv, p.pq, vm, va0, pg, qg, pd, qd, tol, max_iter, linear)
+    fixed = np.broadcast_to(p.gens_fixed_q, pg.shape)
+    sbus = bus_injection_setpoints(p, pg, qg, pd, qd)
+    va0 = _start_angles(p, init, va_in, sbus.real)
+    vm_s, va_s, its, status, mis = _run(p, p.pv, p.pq, vm, va0, sbus, tol, max_iter, linear)
     fields = _assemble(p, vm_s, va_s, pg, qg, pd, qd, fixed)
     msg = np.array([STATUSES[s] for s in status.tolist()], dtype=str)
     return BatchPowerFlowResult(converged=status == CONVERGED, status=status, message=msg,
@@ -181,12 +181,12 @@ def solve_powerflow(net: Network, *, pd_mw=None, qd_mvar=None, pg_mw=None, vm_pu
     va_in = None if va_deg is None else stack_input("va_deg", va_deg, net.va_deg, net.n_bus, None)
     qg = net.qg_mvar[None, :].copy()
     gb = net.gen_bus_idx
-    p_spec = bus_injection_setpoints(p, pg, qg, pd, qd).real
-    va = _start_angles(p, init, va_in, p_spec)
+    sbus = bus_injection_setpoints(p, pg, qg, pd, qd)
+    va = _start_angles(p, init, va_in, sbus.real)
     pv, pq, total = p.pv, p.pq, 0
+    fixed = p.gens_fixed_q[None, :]
     for _ in range(net.n_bus + 1):
-        fixed = ~np.isin(gb, np.r_[pv, p.ref])[None, :]
-        vm, va, its, status, mis = _run(p, pv, pq, vm, va, pg, qg, pd, qd, tol, max_iter, "loop")
+        vm, va, its, status, mis = _run(p, pv, pq, vm, va, sbus, tol, max_iter, "loop")
         total += int(its[0])
         fields = _assemble(p, vm, va, pg, qg, pd, qd, fixed)
         if not enforce_q_limits or status[0] != CONVERGED:
@@ -198,6 +198,8 @@ def solve_powerflow(net: Network, *, pd_mw=None, qd_mvar=None, pg_mw=None, vm_pu
         qg[0, np.isin(gb, high)] = net.qmax_mvar[np.isin(gb, high)]
         pv = np.setdiff1d(pv, np.r_[low, high])
         pq = np.union1d(pq, np.r_[low, high])
+        fixed = ~np.isin(gb, np.r_[pv, p.ref])[None, :]
+        sbus = bus_injection_setpoints(p, pg, qg, pd, qd)
     one = {k: a[0] for k, a in fields.items()}
     return PowerFlowResult(converged=bool(status[0] == CONVERGED), status=str(status[0]),
                            message=STATUSES[str(status[0])], iterations=total,

@@ -24,6 +24,9 @@ class Prepared:
     ``pv``/``pq``: solver bus types (a PV bus without a generator counts as PQ, as in the
     IEEE Common Data Format convention); ``island`` (n_bus,): island label of each bus;
     ``ref_gen`` (n_ref,): the generator taking the balance at each reference bus (-1: none).
+    ``injection`` (n_bus, n_gen + n_load): [cg, -cl] / base_mva, maps [generation, load]
+    [MW] to the bus injection [p.u.]; ``branch_currents`` (2 n_branch, n_bus): [yf; yt];
+    ``gens_fixed_q`` (n_gen,): generators at PQ buses, whose reactive output is a setpoint.
     """
 
     net: Network
@@ -38,6 +41,9 @@ class Prepared:
     bf: sp.csr_matrix
     pbusinj: np.ndarray
     pfinj: np.ndarray
+    injection: sp.csr_matrix
+    branch_currents: sp.csr_matrix
+    gens_fixed_q: np.ndarray
     _patterns: dict = field(default_factory=dict)
     _dc_lu: object = None
 
@@ -93,8 +99,12 @@ def _prepare(net: Network) -> Prepared:
     np.minimum.at(first, gbus, np.arange(ng))
     ref_gen = np.where(first[ref] < ng, first[ref], -1)
     bbus, bf, pbusinj, pfinj = dc_matrices(net)
+    injection = sp.hstack([adm.cg, -adm.cl]).tocsr() / net.base_mva
+    branch_currents = sp.vstack([adm.yf, adm.yt]).tocsr()
     return Prepared(net=net, adm=adm, ref=ref, pv=pv, pq=pq, island=island, ref_gen=ref_gen,
-                    gens_at_bus=gens_at_bus, bbus=bbus, bf=bf, pbusinj=pbusinj, pfinj=pfinj)
+                    gens_at_bus=gens_at_bus, bbus=bbus, bf=bf, pbusinj=pbusinj, pfinj=pfinj,
+                    injection=injection, branch_currents=branch_currents,
+                    gens_fixed_q=~np.isin(gbus, np.r_[pv, ref]))
 
 
 def stack_input(name: str, value, default: np.ndarray, n: int, n_samples: int | None) -> np.ndarray:
@@ -121,7 +131,5 @@ def stack_input(name: str, value, default: np.ndarray, n: int, n_samples: int | 
 
 def bus_injection_setpoints(p: Prepared, pg_mw, qg_mvar, pd_mw, qd_mvar) -> np.ndarray:
     """Specified complex injection (generation - load) per bus, shape (S, n_bus) [p.u.]."""
-    adm, base = p.adm, p.net.base_mva
-    sg = adm.cg @ (pg_mw + 1j * qg_mvar).T
-    sd = adm.cl @ (pd_mw + 1j * qd_mvar).T
-    return np.ascontiguousarray(((sg - sd) / base).T)
+    s = np.concatenate([pg_mw + 1j * qg_mvar, pd_mw + 1j * qd_mvar], axis=1)
+    return np.ascontiguousarray((p.injection @ s.T).T)
