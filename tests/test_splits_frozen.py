@@ -49,7 +49,8 @@ def test_fresh_solves_agree_with_frozen_references(path):
         np.testing.assert_allclose(res.vm_pu, refs.vm_pu[i], atol=2e-3)
 
 
-@pytest.mark.parametrize("path", [p for p in FROZEN if p.name == "test-id"], ids=_ids)
+# ieee300 is left to the re-solve above: PYPOWER takes ~10 s on it, over this area's test budget
+@pytest.mark.parametrize("path", [p for p in FROZEN if p.name == "test-id" and p.parent.name != "ieee300"], ids=_ids)
 def test_frozen_references_match_pypower(path):
     from pypower.api import ppoption, runopf
     s = load_split(path)

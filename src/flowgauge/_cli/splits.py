@@ -103,7 +103,7 @@ def show(network) -> None:
     t = Table(title=f"Frozen splits of {network}", box=box.SIMPLE_HEAD, show_edge=False, pad_edge=False,
               padding=(0, 1, 0, 0), title_justify="left")
     for col in ("split", "samples", "load %\nmin/med/max", "regimes", "thermal\nbinding",
-                "voltage\nbinding", "rejected\ndraws", "solve s\nmed/max"):
+                "voltage\nbinding", "rejected\ndraws", "solve ms\nmed/max"):
         t.add_column(col, no_wrap=True)
     notes = []
     for name in names:
@@ -112,7 +112,7 @@ def show(network) -> None:
         sec = s.solve_seconds
         t.add_row(name, str(s.samples), f"{lo:.0f}/{med:.0f}/{hi:.0f}", str(s.distinct_signatures),
                   _fmt(s.share_thermal, True), _fmt(s.share_voltage, True), str(sum(s.rejected.values())),
-                  f"{_fmt(sec['median'])}/{_fmt(sec['max'])}")
+                  f"{1e3 * sec['median']:.0f}/{1e3 * sec['max']:.0f}")
         if s.rejected:
             notes.append(f"{name} rejected: " + ", ".join(f"{k} {v}" for k, v in sorted(s.rejected.items())))
         if s.notes:
