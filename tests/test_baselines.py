@@ -83,14 +83,15 @@ def test_baseline_command(splits, tmp_path, capsys):
                "--format", "parquet"])
     assert rc == 0 and out.exists()
     assert "wrote" in capsys.readouterr().out
-    rc = main(["baseline", "oracle", "--split", str(split_path("ieee14", "test-id")), "--out", str(tmp_path / "x.json")])
+    test_id = str(split_path("ieee14", "test-id"))
+    rc = main(["baseline", "oracle", "--split", test_id, "--out", str(tmp_path / "x.json")])
     assert rc == 2
     assert ("The 'name' parameter must be one of ['dc-opf', 'linear', 'nearest']. Got 'oracle' instead."
             in capsys.readouterr().err)
     assert not (tmp_path / "x.json").exists()
     blocker = tmp_path / "a-file"
     blocker.write_text("")
-    rc = main(["baseline", "nearest", "--split", str(split_path("ieee14", "test-id")), "--out", str(blocker / "x.json")])
+    rc = main(["baseline", "nearest", "--split", test_id, "--out", str(blocker / "x.json")])
     assert rc == 2 and "a-file/x.json: cannot write here" in capsys.readouterr().err
 
 

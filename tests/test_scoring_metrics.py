@@ -30,15 +30,18 @@ def _state(rng, s=6):
 
 FULL_STATE = ["pd_mw", "qd_mvar", "pg_mw", "qg_mvar", "vm_pu", "va_deg"]
 
+def _full(metric, st):
+    return metric.func(NET, **{k: st[k] for k in FULL_STATE})
+
+
 # metric name -> (callable taking the stacked state, names of the stacked inputs it reads)
 CASES = {
     "generator_cost_per_h": (lambda st: generator_cost_per_h(st["pg_mw"], cost_c2=NET.cost_c2,
                              cost_c1=NET.cost_c1, cost_c0=NET.cost_c0), ["pg_mw"]),
     "optimality_gap_pct": (lambda st: optimality_gap_pct(st["pg_mw"].sum(1), st["pd_mw"].sum(1)), ["pg_mw", "pd_mw"]),
     "bound_violation": (lambda st: bound_violation(st["vm_pu"], NET.vmin_pu, NET.vmax_pu), ["vm_pu"]),
-    "active_balance_residual_mw": (lambda st: METRICS["active_balance_residual_mw"].func(NET, **{k: st[k] for k in FULL_STATE}),
-                                   FULL_STATE),
-    "reactive_balance_residual_mvar": (lambda st: METRICS["reactive_balance_residual_mvar"].func(NET, **{k: st[k] for k in FULL_STATE}),
+    "active_balance_residual_mw": (lambda st: _full(METRICS["active_balance_residual_mw"], st), FULL_STATE),
+    "reactive_balance_residual_mvar": (lambda st: _full(METRICS["reactive_balance_residual_mvar"], st),
                                        FULL_STATE),
     "thermal_overload_mva": (lambda st: thermal_overload_mva(st["sf_mva"], st["st_mva"], rate_mva=RATE,
                                                              in_service=NET.in_service), ["sf_mva", "st_mva"]),

@@ -22,7 +22,8 @@ def _card(gaps=(0.5, np.nan, 1.25)):
     table = pd.DataFrame({"sample_id": np.arange(n), "raw_gap_pct": np.linspace(0, 1, n),
                           "restored_gap_pct": np.array(gaps), "restoration_failed": np.isnan(gaps)})
     stats = {"mean": 1.0, "median": 1.0, "p95": 1.0, "max": 1.0}
-    aggregates = {"samples": n, "restoration_failure_rate": 1 / 3, "restoration_failure_causes": {c: 0.0 for c in CAUSES},
+    aggregates = {"samples": n, "restoration_failure_rate": 1 / 3,
+                  "restoration_failure_causes": {c: 0.0 for c in CAUSES},
                   "raw_gap_pct": stats, "restored_gap_pct": stats,
                   "violations": {f: None for f in FAMILY_TOLERANCE}, "inference_ms": None,
                   "reference_solve_ms_median": 12.5, "speedup_indicative": None,
@@ -78,7 +79,8 @@ def test_default_profile_is_the_documented_one():
         "voltage_pu": 0.001, "thermal_pct_of_rating": 0.5, "angle_deg": 0.1}
     assert dict(DEFAULT_PROFILE.powerflow) == {"start": "dc", "tolerance_pu": 1e-8, "max_iterations": 20}
     assert DEFAULT_PROFILE.hash == "f481ecd70bfae94999c50b5083c6fedc0516fb856dc12dd8ad8c3d66499be604"
-    with pytest.raises(InputError, match=r"The 'profile' parameter of score must be one of \['default'\]. Got 'strict'"):
+    with pytest.raises(InputError,
+                       match=r"The 'profile' parameter of score must be one of \['default'\]. Got 'strict'"):
         get_profile("strict")
 
 

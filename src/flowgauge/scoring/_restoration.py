@@ -21,7 +21,8 @@ import numpy as np
 
 from ..errors import InputError
 from ..network import Network
-from ._metrics import angle_difference_violation_deg, bound_violation, generator_cost_per_h, thermal_overload_mva, thermal_overload_pct
+from ._metrics import (angle_difference_violation_deg, bound_violation, generator_cost_per_h, thermal_overload_mva,
+                       thermal_overload_pct)
 from ._profile import ScoringProfile
 
 __all__ = ["CAUSES", "CHUNK_SAMPLES", "Restoration", "restore", "solve_restoration_chunk"]
