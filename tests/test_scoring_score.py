@@ -114,3 +114,14 @@ def test_split_found_by_hash_and_json_equals_parquet(tmp_path, monkeypatch):
     as_parquet = score(write_reference(sp, tmp_path / "ref.parquet", format="parquet")).to_bytes()
     # the same predictions give the same scorecard bytes whatever the file format
     assert as_json == as_parquet
+
+
+def test_split_without_references_cannot_be_scored(tmp_path):
+    import shutil
+    sp = split("ieee14", "test-id")
+    published = tmp_path / "ieee14" / "test-id"
+    shutil.copytree(split_path("ieee14", "test-id"), published)
+    (published / sp.manifest["files"]["references"]["path"]).unlink()  # as a published split ships
+    path = write_reference(sp, tmp_path / "ref.json")
+    with pytest.raises(InputError, match="the split has no reference solutions"):
+        score(path, published)
