@@ -126,7 +126,7 @@ def _mismatch(adm, vm, va, pv, pq):
     return np.r_[s.real[np.r_[pv, pq]], s.imag[pq]]
 
 
-@settings(max_examples=10, deadline=None)
+@settings(max_examples=10, deadline=None, derandomize=True)  # same verdict on every run
 @given(name=st.sampled_from(["synthetic", "ieee14", "ieee57", "ieee300"]), seed=st.integers(0, 2**31 - 1))
 def test_jacobian_agrees_with_central_differences(name, seed):
     # property: the analytic Jacobian equals central finite differences of the mismatch
