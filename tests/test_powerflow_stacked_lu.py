@@ -46,6 +46,6 @@ def test_singular_sample_is_reported_and_others_solved(pattern):
     data[1] = 0.0  # an all-zero Jacobian is singular (common practice)
     x, ok = stacked_lu(pat).solve(data, rhs)
     assert ok.tolist() == [True, False, True]
-    dx, singular = LINEAR_SOLVERS["stacked"](pat, data, rhs)
+    dx, singular = LINEAR_SOLVERS["stacked"](pat, data.T, rhs)  # solvers take values by entry
     assert singular.tolist() == [False, True, False]
     np.testing.assert_allclose(dx[2], spla.spsolve(pat.matrix(data[2]), rhs[2]), rtol=1e-9, atol=1e-11)

@@ -70,6 +70,8 @@ class JacobianPattern:
         self.indices = jr[order].astype(np.int32)
         self.indptr = np.r_[0, np.cumsum(np.bincount(jc, minlength=self.n))].astype(np.int32)
         self.nnz = int(self.src.size)
+        part, idx = self.src // nnz, self.src % nnz
+        self._parts = [(np.flatnonzero(part == k), idx[part == k]) for k in range(4)]
 
     def values(self, vm: np.ndarray, e: np.ndarray, i_bus: np.ndarray) -> np.ndarray:
         """Jacobian data for every sample, shape (n_samples, nnz), in CSC order.
@@ -77,16 +79,24 @@ class JacobianPattern:
         ``vm`` [p.u.] and ``e = exp(j va)``: shape (n_samples, n_bus); ``i_bus = Ybus V``
         (complex, same shape) [p.u.].
         """
+        t = np.ascontiguousarray
+        return t(self.values_by_entry(t(vm.T), t(e.T), t(i_bus.T)).T)
+
+    def values_by_entry(self, vm: np.ndarray, e: np.ndarray, i_bus: np.ndarray) -> np.ndarray:
+        """As :meth:`values`, in the transposed layout the solvers use: inputs shape
+        (n_bus, n_samples), result (nnz, n_samples)."""
         v = vm * e
-        vi = v[:, self.rows]
-        dvm = vi * np.conj(self.y * e[:, self.cols])
-        dva = -1j * dvm * vm[:, self.cols]
+        dvm = v[self.rows] * np.conj(self.y[:, None] * e[self.cols])
+        dva = dvm * vm[self.cols]
+        dva *= -1j
         d = self.diag_bus
-        ci = np.conj(i_bus[:, d])
-        dva[:, self.diag] += 1j * v[:, d] * ci
-        dvm[:, self.diag] += ci * e[:, d]
-        parts = np.concatenate([dva.real, dvm.real, dva.imag, dvm.imag], axis=1)
-        return parts[:, self.src]
+        ci = np.conj(i_bus[d])
+        dva[self.diag] += 1j * v[d] * ci
+        dvm[self.diag] += ci * e[d]
+        out = np.empty((self.nnz, v.shape[1]))
+        for (pos, idx), src in zip(self._parts, (dva.real, dvm.real, dva.imag, dvm.imag)):
+            out[pos] = src[idx]  # the four blocks of the Jacobian
+        return out
 
     def matrix(self, data: np.ndarray) -> sp.csc_matrix:
         """The Jacobian of one sample from its data (shape (nnz,))."""

@@ -62,7 +62,10 @@ class _OrderedSuperLU:
 
 
 def _solve_loop(pat: JacobianPattern, data: np.ndarray, f: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Newton steps sample by sample; returns ``(dx, singular)``."""
+    """Newton steps sample by sample; returns ``(dx, singular)``.
+
+    Every solver takes ``data`` (nnz, S), the Jacobian values by entry, and ``f`` (S, n)."""
+    data = np.ascontiguousarray(data.T)
     dx = np.zeros_like(f)
     singular = np.zeros(f.shape[0], bool)
     ordered = stacked_lu(pat)
@@ -82,7 +85,7 @@ def _solve_block(pat: JacobianPattern, data: np.ndarray, f: np.ndarray) -> tuple
     if f.shape[0] == 1:
         return _solve_loop(pat, data, f)
     try:
-        lu = spla.splu(pat.block_diagonal(data))
+        lu = spla.splu(pat.block_diagonal(data.T))
     except RuntimeError:  # some sample is singular: find which, sample by sample
         return _solve_loop(pat, data, f)
     return lu.solve(f.ravel()).reshape(f.shape), np.zeros(f.shape[0], bool)
@@ -94,11 +97,11 @@ def _solve_stacked(pat: JacobianPattern, data: np.ndarray, f: np.ndarray) -> tup
     lu = stacked_lu(pat)
     if lu is None:
         return _solve_block(pat, data, f)
-    dx, ok = lu.solve(data, f)
+    dx, ok = lu.solve_by_entry(data, f)
     singular = np.zeros(f.shape[0], bool)
     if not ok.all():
         redo = np.flatnonzero(~ok)
-        dx[redo], singular[redo] = _solve_loop(pat, data[redo], f[redo])
+        dx[redo], singular[redo] = _solve_loop(pat, data[:, redo], f[redo])
     return dx, singular
 
 
@@ -149,7 +152,8 @@ def newton(pat: JacobianPattern, ybus: sp.csr_matrix, vm: np.ndarray, va: np.nda
             vm_k = vm_a
             if not keep.all():
                 active, f, i_bus, e, vm_k = active[keep], f[keep], i_bus[keep], e[keep], vm_a[keep]
-            data = pat.values(vm_k, e, i_bus)
+            t = np.ascontiguousarray
+            data = pat.values_by_entry(t(vm_k.T), t(e.T), t(i_bus.T))
             dx, singular = solve(pat, data, f)
             if singular.any():
                 code[active[singular]] = _CODE[SINGULAR_JACOBIAN]

@@ -85,6 +85,7 @@ class StackedLU:
             raise RuntimeError("the filled pattern does not contain the matrix")
         self.diag = self._find(np.arange(n), np.arange(n))
         self.j_rows_old, self.j_cols_old = pat.indices.astype(np.int64), jcol
+        self._sum_rows = _ones(self.j_rows_old, n)
         self._schedule(keys // n, keys % n)
 
     def _schedule(self, fr: np.ndarray, fc: np.ndarray) -> None:
@@ -133,8 +134,12 @@ class StackedLU:
         ``data``: (S, nnz) matrix values in the pattern's CSC order; ``rhs``: (S, n).
         Returns ``(x, ok)``: (S, n) and (S,) bool, False where the residual check failed.
         """
-        f = np.zeros((self.nnz, data.shape[0]))
-        f[self.j_to_f] = data.T
+        return self.solve_by_entry(np.ascontiguousarray(data.T), rhs)
+
+    def solve_by_entry(self, data: np.ndarray, rhs: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """As :meth:`solve`, with ``data`` in the transposed layout (nnz, S)."""
+        f = np.zeros((self.nnz, data.shape[1]))
+        f[self.j_to_f] = data
         with np.errstate(all="ignore"):
             for ls, ld, a, b, tt, m in self.factor_steps:
                 f[ls] /= f[ld]
@@ -153,12 +158,9 @@ class StackedLU:
         return np.ascontiguousarray(x), ok
 
     def _residual_ok(self, data: np.ndarray, x: np.ndarray, rhs: np.ndarray) -> np.ndarray:
-        n = self.n
-        prod = data * x[:, self.j_cols_old]
-        rows = self.j_rows_old
-        sum_rows = _ones(rows, n) if not hasattr(self, "_sum_rows") else self._sum_rows
-        self._sum_rows = sum_rows
-        res = (sum_rows @ prod.T).T - rhs
-        scale = (sum_rows @ np.abs(prod).T).T + np.abs(rhs)
+        """Componentwise residual check; ``data`` (nnz, S), ``x`` and ``rhs`` (S, n)."""
+        prod = data * x.T[self.j_cols_old]
+        res = (self._sum_rows @ prod).T - rhs
+        scale = (self._sum_rows @ np.abs(prod)).T + np.abs(rhs)
         good = np.abs(res) <= RESIDUAL_TOL * scale + 1e-300
         return np.isfinite(x).all(axis=1) & good.all(axis=1)
