@@ -65,7 +65,8 @@ def card(network, split, name, failed, gap, *, split_hash=None):
             "samples": n, "restoration_failure_rate": float(failed.mean()),
             "restoration_failure_causes": {"voltage": float(failed.mean())},
             "raw_gap_pct": stats, "restored_gap_pct": stats,
-            "violations": {"restored_voltage_pu": {"share": 0.1, "mean": 0.001, "max": 0.01}},
+            "violations": {"restored_voltage_pu": {"share": 0.1, "mean": 0.001, "max": 0.01},
+                           "raw_angle_deg": None},  # null: the file gave no angles
             "inference_ms": None, "reference_solve_ms_median": 50.0, "speedup_indicative": None,
             "ci95": {"restoration_failure_rate": [0.0, 0.1], "restored_gap_pct_mean": [0.1, 0.2]}},
         "per_sample": {"sample_id": list(range(n)), "restoration_failed": failed.tolist(),

@@ -152,7 +152,8 @@ def _details(network: str, entries: dict, rules: Rules, records: list[dict]) -> 
                     (a.get("restoration_failure_causes") or {}).items())],
                 "violations": [(f, _fmt(v.get("share"), 4), _fmt(v.get("mean"), 4),
                                 _fmt(v.get("max"), 4))
-                               for f, v in sorted((a.get("violations") or {}).items())],
+                               for f, v in sorted((a.get("violations") or {}).items())
+                               if v is not None],
                 "inference_ms": {k: _fmt(v, 3) for k, v in (a.get("inference_ms") or {}).items()},
                 "speedup": _fmt(a.get("speedup_indicative"), 1) or None,
                 "record": rec,
