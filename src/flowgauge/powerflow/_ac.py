@@ -85,6 +85,11 @@ def _share_q(p: Prepared, q_bus_mvar: np.ndarray, qg_set: np.ndarray, fixed: np.
 
 def _assemble(p: Prepared, vm, va, pg, qg_set, pd, qd, fixed_q) -> dict:
     """Generator outputs and branch flows from the solved voltages (all (S, ·) arrays)."""
+    with np.errstate(all="ignore"):  # the last iterate of a diverged sample may be huge
+        return _assemble_fields(p, vm, va, pg, qg_set, pd, qd, fixed_q)
+
+
+def _assemble_fields(p: Prepared, vm, va, pg, qg_set, pd, qd, fixed_q) -> dict:
     net, adm, base = p.net, p.adm, p.net.base_mva
     v = vm * np.exp(1j * va)
     s_inj = v * np.conj((adm.ybus @ v.T).T) * base
