@@ -137,3 +137,18 @@ def test_chunked_batch_gives_identical_results(monkeypatch):
     assert chunked.iterations.tolist() == whole.iterations.tolist()
     np.testing.assert_array_equal(chunked.vm_pu, whole.vm_pu)
     np.testing.assert_array_equal(chunked.pf_mw, whole.pf_mw)
+
+
+def test_batched_and_single_agree_on_failures():
+    # restoration-like inputs: random dispatch, perturbed voltages, loads up to 4x; most fail
+    net = load_network("ieee57")
+    rng = np.random.Generator(np.random.PCG64(3))
+    pg = rng.uniform(net.pmin_mw, net.pmax_mw, (8, net.n_gen))
+    vm = default_vm_pu(net) + rng.uniform(-0.1, 0.1, (8, net.n_bus))
+    f = rng.uniform(0.2, 4.0, (8, net.n_load))
+    b = solve_powerflow_batch(net, pd_mw=net.pd_mw * f, qd_mvar=net.qd_mvar * f, pg_mw=pg, vm_pu=vm, init="dc")
+    assert not b.converged.all()
+    for k in range(8):
+        s = solve_powerflow(net, pd_mw=net.pd_mw * f[k], qd_mvar=net.qd_mvar * f[k], pg_mw=pg[k],
+                            vm_pu=vm[k], init="dc")
+        assert (s.status, s.iterations) == (b.status[k], b.iterations[k])
