@@ -6,7 +6,7 @@ Newton steps with sparse LU. Samples leave the active set as soon as they conver
 diverge. The step solve either factorises the block-diagonal matrix of all active samples at
 once ("block"), loops over the samples around one SuperLU factorisation each ("loop"), or
 uses the LU vectorised across samples of ``_stacked_lu`` ("stacked");
-``benchmarks/powerflow.py`` measures both (docs/powerflow.md records the choice).
+``benchmarks/powerflow.py`` measures all three (docs/powerflow.md records the choice).
 """
 
 from __future__ import annotations
@@ -18,7 +18,7 @@ import scipy.sparse as sp
 import scipy.sparse.linalg as spla
 
 from ..physics import JacobianPattern
-from ._stacked_lu import StackedLU
+from ._stacked_lu import StackedLU, fill_reducing_order
 from ._status import CONVERGED, DIVERGED, MAX_ITERATIONS, SINGULAR_JACOBIAN, STATUS_NAMES
 
 __all__ = ["newton", "LINEAR_SOLVERS"]
@@ -26,20 +26,34 @@ __all__ = ["newton", "LINEAR_SOLVERS"]
 _CODE = {name: i for i, name in enumerate(STATUS_NAMES)}
 
 
-_LU_CACHE: "weakref.WeakKeyDictionary[JacobianPattern, StackedLU | None]" = weakref.WeakKeyDictionary()
+# per-pattern linear-algebra data, built on first use
+_CACHE: "weakref.WeakKeyDictionary[JacobianPattern, dict]" = weakref.WeakKeyDictionary()
+
+
+def _cached(pat: JacobianPattern, key: str, build):
+    entry = _CACHE.setdefault(pat, {})
+    if key not in entry:
+        try:
+            entry[key] = build()
+        except RuntimeError:  # the pattern does not allow it; callers fall back to plain SuperLU
+            entry[key] = None
+    return entry[key]
+
+
+def ordering(pat: JacobianPattern) -> np.ndarray | None:
+    """The pattern's fill-reducing ordering (None if diagonal pivots cannot be kept)."""
+    return _cached(pat, "order", lambda: fill_reducing_order(pat))
 
 
 def stacked_lu(pat: JacobianPattern) -> StackedLU | None:
-    """The pattern's :class:`StackedLU`, built on first use (None if the pattern does not allow
-    diagonal pivots)."""
-    if pat not in _LU_CACHE:
-        try:
-            lu = StackedLU(pat)
-            lu.superlu = _OrderedSuperLU(pat, lu.old_of_new)
-            _LU_CACHE[pat] = lu
-        except RuntimeError:
-            _LU_CACHE[pat] = None
-    return _LU_CACHE[pat]
+    """The pattern's :class:`StackedLU` (None if it cannot be built)."""
+    order = ordering(pat)
+    return None if order is None else _cached(pat, "stacked", lambda: StackedLU(pat, order))
+
+
+def ordered_superlu(pat: JacobianPattern) -> "_OrderedSuperLU | None":
+    order = ordering(pat)
+    return None if order is None else _cached(pat, "superlu", lambda: _OrderedSuperLU(pat, order))
 
 
 class _OrderedSuperLU:
@@ -68,11 +82,11 @@ def _solve_loop(pat: JacobianPattern, data: np.ndarray, f: np.ndarray) -> tuple[
     data = np.ascontiguousarray(data.T)
     dx = np.zeros_like(f)
     singular = np.zeros(f.shape[0], bool)
-    ordered = stacked_lu(pat)
+    ordered = ordered_superlu(pat)
     for k in range(f.shape[0]):  # loop over samples around one sparse factorisation each
         try:
             if ordered is not None:
-                dx[k] = ordered.superlu.solve(data[k], f[k])
+                dx[k] = ordered.solve(data[k], f[k])
             else:
                 dx[k] = spla.splu(pat.matrix(data[k])).solve(f[k])
         except RuntimeError:

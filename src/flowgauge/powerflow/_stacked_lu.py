@@ -26,7 +26,7 @@ import scipy.sparse.linalg as spla
 
 from ..physics import JacobianPattern
 
-__all__ = ["StackedLU", "RESIDUAL_TOL"]
+__all__ = ["StackedLU", "RESIDUAL_TOL", "fill_reducing_order"]
 
 # A solution whose residual exceeds this times (|A| |x| + |b|) is rejected [relative].
 RESIDUAL_TOL = 1e-10
@@ -37,11 +37,24 @@ def _ones(rows: np.ndarray, n_rows: int) -> sp.csr_matrix:
     return sp.csr_matrix((np.ones(rows.size), (rows, np.arange(rows.size))), shape=(n_rows, rows.size))
 
 
+def fill_reducing_order(pat: JacobianPattern, seed: int = 0) -> np.ndarray:
+    """A symmetric fill-reducing ordering of the pattern (``old_of_new``, shape (n,)): minimum
+    degree on A + A^T, from SuperLU run on a diagonally dominant matrix with the pattern.
+    Raises RuntimeError if SuperLU did not keep the diagonal pivots."""
+    rng = np.random.Generator(np.random.PCG64(seed))
+    probe = pat.matrix(rng.uniform(-1.0, 1.0, pat.nnz)) + sp.identity(pat.n) * (4.0 * pat.n)
+    lu = spla.splu(sp.csc_matrix(probe), permc_spec="MMD_AT_PLUS_A", diag_pivot_thresh=0.0,
+                   options={"SymmetricMode": True})
+    if not np.array_equal(lu.perm_r, lu.perm_c):
+        raise RuntimeError("diagonal pivots were not kept")
+    return np.argsort(lu.perm_c).astype(np.int64)
+
+
 def _filled_lower(n: int, rows: np.ndarray, cols: np.ndarray) -> sp.coo_matrix:
     """Strict lower triangle of the filled pattern of a structurally symmetric matrix with
     entries (rows, cols), eliminated in index order: (i, j) fills when some k < min(i, j) has
-    (i, k) and (j, k). Computed as a fixed point of sparse products (starting from SuperLU's
-    pattern, which is nearly complete, it takes one or two rounds)."""
+    (i, k) and (j, k). Computed as a fixed point of sparse products; each round adds the
+    fill caused by the entries found so far."""
     lo, hi = np.maximum(rows, cols), np.minimum(rows, cols)
     keep = lo != hi
     low = sp.csr_matrix((np.ones(int(keep.sum())), (lo[keep], hi[keep])), shape=(n, n))
@@ -55,24 +68,18 @@ def _filled_lower(n: int, rows: np.ndarray, cols: np.ndarray) -> sp.coo_matrix:
 
 
 class StackedLU:
-    """Factor-and-solve for a stack of matrices with the CSC pattern of ``pat``."""
+    """Factor-and-solve for a stack of matrices with the CSC pattern of ``pat``, eliminated in
+    the order ``old_of_new`` (from :func:`fill_reducing_order`). Raises RuntimeError if the
+    schedule cannot be built."""
 
-    def __init__(self, pat: JacobianPattern, seed: int = 0):
+    def __init__(self, pat: JacobianPattern, old_of_new: np.ndarray):
         n = pat.n
         self.n = n
-        rng = np.random.Generator(np.random.PCG64(seed))
-        probe = pat.matrix(rng.uniform(-1.0, 1.0, pat.nnz)) + sp.identity(n) * (4.0 * n)
-        lu = spla.splu(sp.csc_matrix(probe), permc_spec="MMD_AT_PLUS_A", diag_pivot_thresh=0.0,
-                       options={"SymmetricMode": True})
-        if not np.array_equal(lu.perm_r, lu.perm_c):
-            raise RuntimeError("diagonal pivots were not kept")
-        self.new_of_old = lu.perm_c.astype(np.int64)
-        self.old_of_new = np.argsort(self.new_of_old)
+        self.old_of_new = np.asarray(old_of_new, np.int64)
+        self.new_of_old = np.argsort(self.old_of_new)
         jcol = np.repeat(np.arange(n), np.diff(pat.indptr))
         r, c = self.new_of_old[pat.indices], self.new_of_old[jcol]
-        lr, lc, _ = sp.find(lu.L)
-        ur, uc, _ = sp.find(lu.U)
-        lower = _filled_lower(n, np.r_[lr, ur, r], np.r_[lc, uc, c])
+        lower = _filled_lower(n, r, c)
         rows = np.r_[lower.row, lower.col, np.arange(n)]
         cols = np.r_[lower.col, lower.row, np.arange(n)]
         keys = np.sort(rows * n + cols)
