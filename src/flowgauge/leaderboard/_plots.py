@@ -68,7 +68,7 @@ def tradeoff_svg(network: str, entries: dict, splits: tuple[str, ...], order: li
         ax.margins(x=0.18, y=0.15)  # room for the entry labels beside the rings
         ax.set_xlabel("restoration failure rate (lower is better)")
         ax.set_ylabel("mean |restored gap| [%] (lower is better)")
-        ax.set_title(f"{network}: restored gap against restoration failure rate")
+        ax.set_title(f"{network}: mean |restored gap| against restoration failure rate")
         ax.grid(True, lw=0.4, alpha=0.5)
         if names:
             ax.legend(title="split (ring: mean)", fontsize=8, loc="best")
