@@ -31,9 +31,13 @@ class ACModel:
     loadability problem (``loadability=True``: maximise the scale factor ``lam`` of a load
     direction). Loads are set with :meth:`set_loads` before each solve."""
 
-    def __init__(self, net: Network, loadability: bool = False, cost_scale: float = 1.0):
+    def __init__(self, net: Network, loadability: bool = False, cost_scale: float = 1.0,
+                 dispatch_weight: float = 0.0):
         self.net = net
         self.loadability = loadability
+        # loadability: a tiny weight on sum(pg^2 + qg^2) picks one dispatch among the many
+        # that reach the same scale factor (keeps the Newton matrix nonsingular)
+        self.dispatch_weight = dispatch_weight if loadability else 0.0
         nb, ng = net.n_bus, net.n_gen
         self.nb, self.ng = nb, ng
         base = float(net.base_mva)
@@ -204,7 +208,7 @@ class ACModel:
             lam = full[self.i_lam]
             p_bus += lam * self.dp_bus
             q_bus += lam * self.dq_bus
-            f = -lam
+            f = -lam + 0.5 * self.dispatch_weight * float(pg @ pg + qg @ qg)
         else:
             f = float(self.cost_c2 @ (pg * pg) + self.cost_c1 @ pg + self.cost_c0)
         le = self.lim_end
@@ -228,6 +232,9 @@ class ACModel:
         g = np.zeros(self.n_full)
         if self.loadability:
             g[self.i_lam] = -1.0
+            ng, w = self.ng, self.dispatch_weight
+            g[self.i_pg:self.i_pg + ng] = w * self.x_full[self.i_pg:self.i_pg + ng]
+            g[self.i_qg:self.i_qg + ng] = w * self.x_full[self.i_qg:self.i_qg + ng]
         else:
             pg = self.x_full[self.i_pg:self.i_pg + self.ng]
             g[self.i_pg:self.i_pg + self.ng] = 2 * self.cost_c2 * pg + self.cost_c1
@@ -295,6 +302,8 @@ class ACModel:
         diag[nb:2 * nb] = 2 * (lp * self.gs - lq * self.bs)
         if not self.loadability:
             diag[self.i_pg:self.i_pg + self.ng] = 2 * self.cost_c2
+        else:
+            diag[self.i_pg:self.i_qg + self.ng] = self.dispatch_weight
         diag = diag[self.free] + d_x
         jv = [et.dp[self.mj], et.dq[self.mj],
               2 * self.gs[self.shunt_bus] * vm[self.shunt_bus], -2 * self.bs[self.shunt_bus] * vm[self.shunt_bus],

@@ -26,6 +26,9 @@ def max_loadability(net: Network, pd_mw=None, qd_mvar=None, dir_pd_mw=None, dir_
 
     Base loads default to the network's own, the direction to the base loads (a uniform
     scaling, so the total load is ``(1 + lam)`` times the base). Generator costs are not used.
+    ``lam`` is the optimum ``lam_limit`` backed off by ``OPFSettings.loadability_backoff``
+    (relative), since at the limit itself the feasible set can have no interior; the
+    operating point and binding limits are those at ``lam_limit``.
     A negative ``lam`` means the base loading itself cannot be carried. Returns a
     :class:`LoadabilityResult`; failure to converge is a status, not an exception.
     """
@@ -37,15 +40,18 @@ def max_loadability(net: Network, pd_mw=None, qd_mvar=None, dir_pd_mw=None, dir_
     if not (np.any(dpd != 0.0) or np.any(dqd != 0.0)):
         raise InputError("the direction of load increase is zero everywhere; give a non-zero "
                          "direction", where="dir_pd_mw")
-    model = ACModel(net, loadability=True)
+    model = ACModel(net, loadability=True, dispatch_weight=st.loadability_dispatch_weight)
     model.set_loads(pd, qd, dpd, dqd)
     t0 = time.perf_counter()
     out = interior_point(model, model.start_point(), st)
     seconds = time.perf_counter() - t0
     rep = point_report(model, out.x, st.binding_tol)
-    lam = float(model.x_full[model.i_lam])
+    lam_limit = float(model.x_full[model.i_lam])
+    # At the limit itself the feasible set has no interior (e.g. every generator at Pmax);
+    # a tiny relative back-off gives a loading the AC-OPF solves.
+    lam = lam_limit - st.loadability_backoff * abs(lam_limit)
     return LoadabilityResult(
-        status=out.status, message=STATUS_MESSAGES[out.status], lam=lam,
+        status=out.status, message=STATUS_MESSAGES[out.status], lam=lam, lam_limit=lam_limit,
         pd_mw=pd + lam * dpd, qd_mvar=qd + lam * dqd, pg_mw=rep.pg_mw, qg_mvar=rep.qg_mvar,
         vm_pu=rep.vm_pu, va_deg=rep.va_deg, binding=rep.binding, signature=rep.signature,
         iterations=out.iterations, seconds=seconds, max_p_mismatch_mw=rep.max_p_mismatch_mw,

@@ -201,7 +201,7 @@ def interior_point(problem: Problem, x0: np.ndarray, settings: OPFSettings,
         norm_x = float(np.max(np.abs(x), initial=0.0))
         mult = max(float(np.max(np.abs(lam), initial=0.0)), float(np.max(mu, initial=0.0)))
         grad = float(np.max(np.abs(lx), initial=0.0)) / (1.0 + mult)
-        comp = float(z @ mu) / (1.0 + norm_x)
+        comp = float(np.max(z * mu, initial=0.0)) / (1.0 + norm_x)
         cost = abs(f - f_prev) / (1.0 + abs(f_prev))
         conds = (feas, grad, comp, cost)
         if not np.all(np.isfinite([f, feas, grad, comp])):
@@ -223,7 +223,7 @@ def interior_point(problem: Problem, x0: np.ndarray, settings: OPFSettings,
         it += 1
         # the barrier never falls far below what the complementarity test needs, so the
         # Newton matrix keeps its conditioning while the other tests are being met
-        floor = settings.barrier_floor * settings.complementarity_tol * (1.0 + norm_x) / max(n_in, 1)
+        floor = settings.barrier_floor * settings.complementarity_tol * (1.0 + norm_x)
         zinv = 1.0 / z
         d = mu * zinv
         delta = 0.0

@@ -78,10 +78,12 @@ class OPFResult:
 class LoadabilityResult:
     """Outcome of a maximum-loadability solve.
 
-    ``lam``: the largest scale factor of the load direction at which the AC-OPF constraints
-    can be met (loads = base + lam x direction); ``status``, ``message`` as for
-    :class:`OPFResult`; ``pd_mw``, ``qd_mvar`` (n_load,): the loads at ``lam``; the operating
-    point ``pg_mw``, ``qg_mvar`` (n_gen,), ``vm_pu``, ``va_deg`` (n_bus,); ``binding``,
+    ``lam_limit``: the largest scale factor of the load direction at which the AC-OPF
+    constraints can be met (loads = base + lam x direction); ``lam``: that value backed off by
+    ``OPFSettings.loadability_backoff`` (relative) so that the AC-OPF at ``lam`` has a
+    feasible interior; ``status``, ``message`` as for :class:`OPFResult`; ``pd_mw``,
+    ``qd_mvar`` (n_load,): the loads at ``lam``; the operating point at ``lam_limit``:
+    ``pg_mw``, ``qg_mvar`` (n_gen,), ``vm_pu``, ``va_deg`` (n_bus,); ``binding``,
     ``signature``, ``iterations``, ``seconds``, residuals and violations as for
     :class:`OPFResult`.
     """
@@ -103,6 +105,7 @@ class LoadabilityResult:
     max_q_mismatch_mvar: float
     max_limit_violation: float
     violations: dict[str, float] = field(default_factory=dict)
+    lam_limit: float = float("nan")
 
     @property
     def converged(self) -> bool:

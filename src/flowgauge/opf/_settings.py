@@ -49,6 +49,11 @@ class OPFSettings:
     ``cost_scale``: factor applied to the objective inside the solver for better conditioning
     (results are reported unscaled; the complementarity and dual-infeasibility tests use the
     scaled objective).
+    ``loadability_dispatch_weight``: weight of ``sum(pg^2 + qg^2)`` [per p.u.^2] added to
+    ``-lam`` in the maximum-loadability objective, so that one dispatch is chosen among the
+    many that reach the same scale factor (lowers ``lam`` by about this weight's size).
+    ``loadability_backoff``: relative back-off of the reported maximum scale factor from the
+    optimum (see :func:`flowgauge.opf.max_loadability`).
     ``stall_iterations``: if the feasibility measure has not halved in this many iterations
     while the multipliers grow past ``multiplier_limit``, the run stops as "infeasible".
     """
@@ -66,6 +71,8 @@ class OPFSettings:
     corrector_min_step: float = 0.5
     barrier_floor: float = 0.5
     cost_scale: float = 1e-4
+    loadability_dispatch_weight: float = 1e-6
+    loadability_backoff: float = 1e-6
     stall_iterations: int = 25
     multiplier_limit: float = 1e8
 
