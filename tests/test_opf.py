@@ -298,3 +298,40 @@ def test_iteration_limit_is_reported(nets):
     assert isinstance(res, OPFResult) and res.message == STATUS_MESSAGES["iteration_limit"]
     with pytest.raises(FrozenInstanceError, match="cannot assign to field 'status'"):
         res.status = "converged"
+
+
+def _variants(net):
+    """ieee30 with a branch out of service, a generator fixed by equal limits, and binding
+    angle-difference limits (the IEEE data has none of these)."""
+    ins = net.in_service.copy()
+    ins[4] = False
+    fixed = np.arange(net.n_gen) == 1
+    amax, amin = net.angmax_deg.copy(), net.angmin_deg.copy()
+    amax[0], amin[1], amin[2] = 0.5, -0.1, 0.0
+    return {"out_of_service": net.replace(in_service=ins),
+            "fixed_generator": net.replace(pmin_mw=np.where(fixed, 40.0, net.pmin_mw),
+                                           pmax_mw=np.where(fixed, 40.0, net.pmax_mw)),
+            "angle_limits": net.replace(angmax_deg=amax, angmin_deg=amin)}
+
+
+@pytest.mark.parametrize("variant", ["out_of_service", "fixed_generator", "angle_limits"])
+def test_modified_networks_match_pypower(variant, nets):
+    from pypower.api import ppoption, rundcopf, runopf
+    net = _variants(nets["ieee30"])[variant]
+    res, dc = solve_acopf(net), solve_dcopf(net)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        ref = runopf(to_ppc(net), ppoption(**PP_OPTIONS))
+        ref_dc = rundcopf(to_ppc(net), ppoption(**PP_OPTIONS))
+    # reference library: PYPOWER 5.1.21 runopf / rundcopf on the same modified data
+    assert res.converged and ref["success"] and dc.converged and ref_dc["success"]
+    assert res.objective == pytest.approx(ref["f"], rel=1e-6)
+    assert dc.objective == pytest.approx(ref_dc["f"], rel=1e-6)
+    if variant == "fixed_generator":
+        assert res.pg_mw[1] == pytest.approx(40.0, abs=1e-9)
+        assert {"gen:2:pmin", "gen:2:pmax"} <= set(res.binding)
+    if variant == "angle_limits":
+        assert "branch:1:angmax" in res.binding and "branch:1:angmax" in dc.binding
+        # PYPOWER's MU_ANGMAX column (branch column 20) for branch 1, in $/h per degree
+        assert res.multipliers["angmax"][0] == pytest.approx(ref["branch"][0, 20], rel=1e-2)
+        assert res.va_deg[0] - res.va_deg[1] == pytest.approx(0.5, abs=1e-5)
