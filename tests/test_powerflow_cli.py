@@ -5,7 +5,6 @@ from __future__ import annotations
 import json
 
 import numpy as np
-import pytest
 from pypower.idx_brch import PF, QT
 from pypower.idx_bus import VA, VM
 from pypower.idx_gen import QG
