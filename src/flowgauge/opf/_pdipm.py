@@ -13,9 +13,11 @@ by Newton steps on the perturbed Karush-Kuhn-Tucker conditions, following
   (interior-point methods for nonlinear programming).
 
 Inequalities (including the finite variable bounds) get slacks ``z > 0`` with ``h + z = 0``
-and multipliers ``mu > 0``; the barrier parameter ``gamma`` follows ``centering`` times the mean
-complementarity ``z'mu / n_ineq`` and goes to zero. Eliminating ``dz`` and ``dmu`` reduces each
-Newton step to the symmetric indefinite system::
+and multipliers ``mu > 0``; the barrier parameter ``gamma`` goes to zero, set each iteration by
+Mehrotra's predictor-corrector rule (S. Mehrotra, SIAM J. Optim. 2(4):575-601, 1992) or as
+``centering`` times the mean complementarity ``z'mu / n_ineq``, and never below a floor tied to
+the complementarity test. Eliminating ``dz`` and ``dmu`` reduces each Newton step to the
+symmetric indefinite system::
 
     [ M   dg' ] [dx ]   [ -N ]      M = Lxx + dh' diag(mu/z) dh
     [ dg  0   ] [dlam] = [ -g ]     N = Lx + dh' (mu*h + gamma) / z
@@ -165,132 +167,161 @@ class _Curvature:
         return delta * (100.0 if self.last == 0.0 else 8.0)
 
 
+@dataclass
+class _Iterate:
+    """The primal-dual point: ``x``, slacks ``z`` and multipliers ``mu`` of ``hb`` (problem
+    inequalities, then bounds), multipliers ``lam`` of ``g``, and the values at ``x``."""
+
+    x: np.ndarray
+    z: np.ndarray
+    mu: np.ndarray
+    lam: np.ndarray
+    f: float
+    g: np.ndarray
+    hb: np.ndarray
+
+
+def _measures(it: _Iterate, lx: np.ndarray, f_prev: float) -> tuple[float, float, float, float, float]:
+    """(feasibility, scaled gradient, scaled complementarity, cost change, largest multiplier)."""
+    feas = max(float(np.max(np.abs(it.g), initial=0.0)), float(np.max(it.hb, initial=0.0)))
+    norm_x = float(np.max(np.abs(it.x), initial=0.0))
+    mult = max(float(np.max(np.abs(it.lam), initial=0.0)), float(np.max(it.mu, initial=0.0)))
+    grad = float(np.max(np.abs(lx), initial=0.0)) / (1.0 + mult)
+    comp = float(np.max(it.z * it.mu, initial=0.0)) / (1.0 + norm_x)
+    cost = abs(it.f - f_prev) / (1.0 + abs(f_prev))
+    return feas, grad, comp, cost, mult
+
+
+def _direction(problem: Problem, bounds: _Bounds, it: _Iterate, lx, solve, target):
+    """Newton direction (dx, dlam, dz, dmu) for the complementarity target ``target``."""
+    n_h, n_x = problem.n_ineq, problem.n_x
+    zinv = 1.0 / it.z
+    w = zinv * (it.mu * it.hb + target)
+    n_vec = lx + problem.jac_h_t(w[:n_h]) + bounds.jac_t(w[n_h:], n_x)
+    sol = solve(-np.concatenate([n_vec, it.g]))
+    dx = sol[:n_x]
+    dz = -it.hb - it.z - np.concatenate([problem.jac_h(dx), bounds.jac(dx)])
+    return dx, sol[n_x:], dz, -it.mu + zinv * (target - it.mu * dz)
+
+
+def _newton_step(problem: Problem, bounds: _Bounds, it: _Iterate, lx, gamma: float, floor: float,
+                 settings: OPFSettings, curvature: _Curvature):
+    """The step direction of one iteration, or None when the Newton matrix cannot be factorised.
+
+    Factorises (adding ``delta I`` until the curvature test passes), then takes Mehrotra's
+    predictor-corrector direction, or the plain direction with barrier ``gamma``."""
+    n_h, n_in = problem.n_ineq, it.z.size
+    d = it.mu * (1.0 / it.z)
+    delta = 0.0
+    pc = settings.predictor_corrector and n_in > 0
+    while True:
+        fac = _factor(problem, it.lam, it.mu[:n_h], d[:n_h], bounds.diag(d[n_h:], problem.n_x), delta)
+        if fac is None:
+            return None
+        solve, wmat = fac
+        step = _direction(problem, bounds, it, lx, solve, 0.0 if pc else gamma)
+        if curvature.ok(wmat, step[0]) or delta >= curvature.MAX:
+            break
+        delta = curvature.next(delta)
+    if delta > 0.0:
+        curvature.last = delta
+    if not pc:
+        return step
+    # Mehrotra: the affine-scaling predictor sets the centering, the corrector adds the
+    # second-order complementarity term
+    _, _, dz, dmu = step
+    ap, ad = _max_step(it.z, dz, 1.0), _max_step(it.mu, dmu, 1.0)
+    mean = float(it.z @ it.mu) / n_in
+    mean_aff = float((it.z + ap * dz) @ (it.mu + ad * dmu)) / n_in
+    sigma = min(1.0, (mean_aff / mean) ** 3) if mean > 0 else 0.0
+    corrected = _direction(problem, bounds, it, lx, solve, max(sigma * mean, floor) - dz * dmu)
+    if _max_step(it.z, corrected[2], settings.step_to_boundary) >= settings.corrector_min_step:
+        return corrected
+    return _direction(problem, bounds, it, lx, solve, gamma)  # short corrected step: a plain one
+
+
+def _start(problem: Problem, bounds: _Bounds, x0: np.ndarray, lam0) -> _Iterate:
+    x = np.asarray(x0, float).copy()
+    f, g, h = problem.evaluate(x)
+    hb = np.concatenate([h, bounds.values(x)])
+    z = np.ones(hb.size)
+    far = hb < -1.0
+    z[far] = -hb[far]
+    lam = np.zeros(problem.n_eq) if lam0 is None else np.asarray(lam0, float).copy()
+    return _Iterate(x=x, z=z, mu=1.0 / z, lam=lam, f=f, g=g, hb=hb)
+
+
+def _outcome(it: _Iterate, bounds: _Bounds, n_h: int, status: str, iterations: int, conds) -> IPOutcome:
+    n_x = it.x.size
+    mu_lower, mu_upper = np.zeros(n_x), np.zeros(n_x)
+    mu_lower[bounds.il] = it.mu[n_h:n_h + bounds.nl]
+    mu_upper[bounds.iu] = it.mu[n_h + bounds.nl:]
+    return IPOutcome(x=it.x, lam=it.lam, mu=it.mu[:n_h].copy(), mu_lower=mu_lower, mu_upper=mu_upper,
+                     f=float(it.f), status=status, iterations=iterations, feasibility=conds[0],
+                     gradient=conds[1], complementarity=conds[2], cost_change=conds[3])
+
+
 def interior_point(problem: Problem, x0: np.ndarray, settings: OPFSettings,
                    lam0: np.ndarray | None = None) -> IPOutcome:
     """Run the primal-dual interior-point method from ``x0`` (shape (n_x,)).
 
-    ``lam0`` optionally gives starting equality multipliers (warm start). Returns an
-    :class:`IPOutcome`; never raises for a problem that fails to converge.
+    ``lam0`` optionally gives starting equality multipliers. Returns an :class:`IPOutcome`;
+    never raises for a problem that fails to converge.
     """
-    n_x, n_eq = problem.n_x, problem.n_eq
+    st = settings
     bounds = _Bounds(problem.x_lower, problem.x_upper)
     n_h = problem.n_ineq
-    x = np.asarray(x0, float).copy()
-    f, g, h = problem.evaluate(x)
-    hb = np.concatenate([h, bounds.values(x)])
-    n_in = hb.size
-    z = np.ones(n_in)
-    far = hb < -1.0
-    z[far] = -hb[far]
-    gamma = 1.0
-    mu = gamma / z
-    lam = np.zeros(n_eq) if lam0 is None else np.asarray(lam0, float).copy()
-    xi = settings.step_to_boundary
-    f_prev = f
-    grad_scale = None
+    it = _start(problem, bounds, x0, lam0)
+    n_in = it.z.size
+    gamma, f_prev, grad_scale = 1.0, it.f, None
     feas_hist: list[float] = []
-    status = "iteration_limit"
-    it = 0
     curvature = _Curvature()
     conds = (np.inf, np.inf, np.inf, np.inf)
+    k = 0
     while True:
-        lx = problem.grad_lagrangian(lam, mu[:n_h]) + bounds.jac_t(mu[n_h:], n_x)
+        lx = problem.grad_lagrangian(it.lam, it.mu[:n_h]) + bounds.jac_t(it.mu[n_h:], problem.n_x)
         if grad_scale is None:
             grad_scale = 1.0 + float(np.max(np.abs(lx), initial=0.0))
-        feas = max(float(np.max(np.abs(g), initial=0.0)), float(np.max(hb, initial=0.0)))
-        norm_x = float(np.max(np.abs(x), initial=0.0))
-        mult = max(float(np.max(np.abs(lam), initial=0.0)), float(np.max(mu, initial=0.0)))
-        grad = float(np.max(np.abs(lx), initial=0.0)) / (1.0 + mult)
-        comp = float(np.max(z * mu, initial=0.0)) / (1.0 + norm_x)
-        cost = abs(f - f_prev) / (1.0 + abs(f_prev))
-        conds = (feas, grad, comp, cost)
-        if not np.all(np.isfinite([f, feas, grad, comp])):
+        *conds, mult = _measures(it, lx, f_prev)
+        feas = conds[0]
+        if not np.all(np.isfinite([it.f, *conds[:3]])):
             status = "numerical_failure"
             break
-        if (feas <= settings.feasibility_tol and grad <= settings.gradient_tol
-                and comp <= settings.complementarity_tol and cost <= settings.cost_tol):
+        if all(c <= tol for c, tol in zip(conds, (st.feasibility_tol, st.gradient_tol,
+                                                   st.complementarity_tol, st.cost_tol))):
             status = "converged"
             break
         feas_hist.append(feas)
-        k = settings.stall_iterations
-        if (len(feas_hist) > k and feas > settings.feasibility_tol and feas > 0.5 * feas_hist[-k - 1]
-                and mult > settings.multiplier_limit * grad_scale):
+        m = st.stall_iterations
+        if (len(feas_hist) > m and feas > st.feasibility_tol and feas > 0.5 * feas_hist[-m - 1]
+                and mult > st.multiplier_limit * grad_scale):
             status = "infeasible"
             break
-        if it >= settings.max_iter:
-            status = "iteration_limit"
+        if k >= st.max_iter:
+            status = "infeasible" if feas > st.feasibility_tol and mult > st.multiplier_limit * grad_scale \
+                else "iteration_limit"
             break
-        it += 1
+        k += 1
         # the barrier never falls far below what the complementarity test needs, so the
         # Newton matrix keeps its conditioning while the other tests are being met
-        floor = settings.barrier_floor * settings.complementarity_tol * (1.0 + norm_x)
-        zinv = 1.0 / z
-        d = mu * zinv
-        delta = 0.0
-        while True:
-            fac = _factor(problem, lam, mu[:n_h], d[:n_h], bounds.diag(d[n_h:], n_x), delta)
-            if fac is None:
-                break
-            solve, wmat = fac
-
-            def direction(target):
-                w = zinv * (mu * hb + target)
-                n_vec = lx + problem.jac_h_t(w[:n_h]) + bounds.jac_t(w[n_h:], n_x)
-                sol = solve(-np.concatenate([n_vec, g]))
-                dx_ = sol[:n_x]
-                dz_ = -hb - z - np.concatenate([problem.jac_h(dx_), bounds.jac(dx_)])
-                return dx_, sol[n_x:], dz_, -mu + zinv * (target - mu * dz_)
-
-            if settings.predictor_corrector and n_in:
-                # Mehrotra: an affine-scaling predictor sets the centering, a corrector adds
-                # the second-order complementarity term
-                dx, dlam, dz, dmu = direction(0.0)
-            else:
-                dx, dlam, dz, dmu = direction(gamma)
-            if curvature.ok(wmat, dx) or delta >= curvature.MAX:
-                break
-            delta = curvature.next(delta)
-        if fac is None:
+        norm_x = float(np.max(np.abs(it.x), initial=0.0))
+        floor = st.barrier_floor * st.complementarity_tol * (1.0 + norm_x)
+        step = _newton_step(problem, bounds, it, lx, gamma, floor, st, curvature)
+        if step is None or not (np.all(np.isfinite(step[0])) and np.all(np.isfinite(step[1]))):
             status = "numerical_failure"
             break
-        if delta > 0.0:
-            curvature.last = delta
-        if settings.predictor_corrector and n_in:
-            ap, ad = _max_step(z, dz, 1.0), _max_step(mu, dmu, 1.0)
-            mean = float(z @ mu) / n_in
-            mean_aff = float((z + ap * dz) @ (mu + ad * dmu)) / n_in
-            sigma = min(1.0, (mean_aff / mean) ** 3) if mean > 0 else 0.0
-            corrected = direction(max(sigma * mean, floor) - dz * dmu)
-            if _max_step(z, corrected[2], xi) >= settings.corrector_min_step:
-                dx, dlam, dz, dmu = corrected
-            else:  # the corrected step is short: take a plain centred step instead
-                dx, dlam, dz, dmu = direction(gamma)
-        if not (np.all(np.isfinite(dx)) and np.all(np.isfinite(dlam))):
-            status = "numerical_failure"
-            break
-        ap = _max_step(z, dz, xi)
-        ad = _max_step(mu, dmu, xi)
-        if ap < settings.min_step or ad < settings.min_step:
+        dx, dlam, dz, dmu = step
+        ap = _max_step(it.z, dz, st.step_to_boundary)
+        ad = _max_step(it.mu, dmu, st.step_to_boundary)
+        if ap < st.min_step or ad < st.min_step:
             # a vanishing step far from feasibility: the usual sign of an infeasible problem
-            status = "infeasible" if conds[0] > settings.feasibility_tol else "numerical_failure"
+            status = "infeasible" if feas > st.feasibility_tol else "numerical_failure"
             break
-        x = x + ap * dx
-        z = z + ap * dz
-        lam = lam + ad * dlam
-        mu = mu + ad * dmu
-        if n_in:
-            gamma = max(settings.centering * float(z @ mu) / n_in, floor)
-        f_prev = f
+        x = it.x + ap * dx
+        f_prev = it.f
         f, g, h = problem.evaluate(x)
-        hb = np.concatenate([h, bounds.values(x)])
-    if status != "converged" and status == "iteration_limit" and conds[0] > settings.feasibility_tol:
-        big = max(float(np.max(np.abs(lam), initial=0.0)), float(np.max(mu, initial=0.0)))
-        if big > settings.multiplier_limit * (grad_scale or 1.0):
-            status = "infeasible"
-    mu_lower = np.zeros(n_x)
-    mu_upper = np.zeros(n_x)
-    mu_lower[bounds.il] = mu[n_h:n_h + bounds.nl]
-    mu_upper[bounds.iu] = mu[n_h + bounds.nl:]
-    return IPOutcome(x=x, lam=lam, mu=mu[:n_h].copy(), mu_lower=mu_lower, mu_upper=mu_upper, f=float(f),
-                     status=status, iterations=it, feasibility=conds[0], gradient=conds[1],
-                     complementarity=conds[2], cost_change=conds[3])
+        it = _Iterate(x=x, z=it.z + ap * dz, mu=it.mu + ad * dmu, lam=it.lam + ad * dlam, f=f, g=g,
+                      hb=np.concatenate([h, bounds.values(x)]))
+        if n_in:
+            gamma = max(st.centering * float(it.z @ it.mu) / n_in, floor)
+    return _outcome(it, bounds, n_h, status, k, conds)

@@ -38,7 +38,7 @@ class OPFResult:
     ``violations``: largest violation per limit kind in the limit's own unit (``vm_pu``,
     ``pg_mw``, ``qg_mvar``, ``rate_mva``, ``angle_deg``); ``max_limit_violation`` is the
     largest of them (0 when every limit holds).
-    ``complementarity``: sum of slack x multiplier / (1 + largest variable) (scaled objective);
+    ``complementarity``: largest slack x multiplier / (1 + largest variable) (scaled objective);
     ``dual_infeasibility``: largest Lagrangian gradient entry / (1 + largest multiplier).
     ``binding``: sorted labels ``"<bus|gen|branch>:<id>:<limit>"`` of the limits within
     ``OPFSettings.binding_tol`` of the solution; ``signature``: first 16 hex digits of the

@@ -30,8 +30,8 @@ class OPFSettings:
     of its rating, angle difference [rad]) at a "converged" point.
     ``gradient_tol``: largest accepted gradient of the Lagrangian, divided by
     1 + the largest multiplier (scale-free dual infeasibility).
-    ``complementarity_tol``: largest accepted sum of slack x multiplier, divided by
-    1 + the largest variable magnitude.
+    ``complementarity_tol``: largest accepted slack x multiplier product of any inequality,
+    divided by 1 + the largest variable magnitude (scaled objective).
     ``cost_tol``: largest accepted relative change of the objective in the last iteration.
     ``max_iter``: iteration limit. ``step_to_boundary``: fraction of the step to the boundary
     of the positive orthant taken at most (keeps slacks and multipliers positive).
