@@ -13,7 +13,7 @@ import scipy.sparse as sp
 from ..network._model import Network
 from ..physics._dc import dc_matrices
 from ._pdipm import interior_point
-from ._result import binding_signature, check_costs, check_loads
+from ._result import LIMIT_NAMES, binding_signature, check_costs, check_loads
 from ._settings import STATUS_MESSAGES, OPFSettings
 
 __all__ = ["DCOPFResult", "solve_dcopf", "QuadraticProblem"]
@@ -130,13 +130,51 @@ def _dc_problem(net: Network, pd_mw: np.ndarray, cost_scale: float):
     return prob, parts
 
 
+def _dc_multipliers(net: Network, p: dict, out, cs: float) -> dict[str, np.ndarray]:
+    nb, base, nl = net.n_bus, float(net.base_mva), net.n_branch
+    lim, amin, amax = p["lim"], p["amin"], p["amax"]
+    n1, n2 = lim.size, 2 * lim.size
+    mu = out.mu / cs
+    mult = {"pmin": np.zeros(net.n_gen), "pmax": np.zeros(net.n_gen)}
+    is_gen = p["free"] >= nb
+    mult["pmin"][p["free"][is_gen] - nb] = out.mu_lower[is_gen] / cs / base
+    mult["pmax"][p["free"][is_gen] - nb] = out.mu_upper[is_gen] / cs / base
+    per_degree = np.rad2deg(1.0)
+    for name, idx, vals, scale in (("rate_from", lim, mu[:n1], base), ("rate_to", lim, mu[n1:n2], base),
+                                   ("angmin", amin, mu[n2:n2 + amin.size], per_degree),
+                                   ("angmax", amax, mu[n2 + amin.size:], per_degree)):
+        arr = np.zeros(nl)
+        arr[idx] = vals / scale
+        mult[name] = arr
+    return mult
+
+
+def _dc_binding(net: Network, p: dict, pg_pu, flow_mw, dang_deg, tol: float) -> tuple[str, ...]:
+    """Binding-limit labels, sorted as for the AC result (kind, id, limit)."""
+    base, lim, amin, amax = float(net.base_mva), p["lim"], p["amin"], p["amax"]
+    near = np.abs(flow_mw[lim]) >= net.rate_mva[lim] * (1.0 - tol)
+    groups = [
+        (1, net.gen_id[pg_pu - net.pmin_mw / base <= tol], "pmin"),
+        (1, net.gen_id[net.pmax_mw / base - pg_pu <= tol], "pmax"),
+        (2, net.branch_id[lim[near & (flow_mw[lim] > 0)]], "rate_from"),
+        (2, net.branch_id[lim[near & (flow_mw[lim] <= 0)]], "rate_to"),
+        (2, net.branch_id[amin[np.deg2rad(dang_deg[amin] - net.angmin_deg[amin]) <= tol]], "angmin"),
+        (2, net.branch_id[amax[np.deg2rad(net.angmax_deg[amax] - dang_deg[amax]) <= tol]], "angmax"),
+    ]
+    kind = {1: "gen", 2: "branch"}
+    order = list(LIMIT_NAMES)
+    labels = [(k, int(i), order.index(lim_name), f"{kind[k]}:{int(i)}:{lim_name}")
+              for k, ids, lim_name in groups for i in ids]
+    return tuple(lab[3] for lab in sorted(labels))
+
+
 def solve_dcopf(net: Network, pd_mw=None, settings: OPFSettings | None = None) -> DCOPFResult:
     """Solve the DC optimal power flow of ``net`` for active loads ``pd_mw`` (shape (n_load,)
     [MW]; None: the network's own). Reactive loads play no part."""
     st = settings or OPFSettings()
     check_costs(net)
     pd = check_loads(net, pd_mw, "pd_mw", net.pd_mw)
-    nb, ng, base, cs = net.n_bus, net.n_gen, float(net.base_mva), st.cost_scale
+    nb, base, cs = net.n_bus, float(net.base_mva), st.cost_scale
     prob, p = _dc_problem(net, pd, cs)
     x0 = np.zeros(prob.n_x)
     mid = np.isfinite(prob.x_lower) & np.isfinite(prob.x_upper)
@@ -150,40 +188,14 @@ def solve_dcopf(net: Network, pd_mw=None, settings: OPFSettings | None = None) -
     flow = (p["bf"] @ va + p["pfinj"]) * base
     mismatch = (p["a_full"] @ full + p["pbusinj"] + p["pd_bus"]) * base
     lim, amin, amax = p["lim"], p["amin"], p["amax"]
-    rate = net.rate_mva[lim]
     dang = np.rad2deg(va[net.f_idx] - va[net.t_idx])
-    viol = [np.abs(flow[lim]) - rate, net.pmin_mw - pg * base, pg * base - net.pmax_mw,
+    viol = [np.abs(flow[lim]) - net.rate_mva[lim], net.pmin_mw - pg * base, pg * base - net.pmax_mw,
             net.angmin_deg[amin] - dang[amin], dang[amax] - net.angmax_deg[amax]]
-    max_viol = max(0.0, *(float(np.max(v, initial=0.0)) for v in viol))
-    n1, n2 = lim.size, 2 * lim.size
-    mu = out.mu / cs
-    nl = net.n_branch
-    mult = {"pmin": np.zeros(ng), "pmax": np.zeros(ng)}
-    gfree = p["free"][p["free"] >= nb] - nb
-    mult["pmin"][gfree] = out.mu_lower[p["free"] >= nb] / cs / base
-    mult["pmax"][gfree] = out.mu_upper[p["free"] >= nb] / cs / base
-    for name, idx, vals, scale in (("rate_from", lim, mu[:n1], base), ("rate_to", lim, mu[n1:n2], base),
-                                   ("angmin", amin, mu[n2:n2 + amin.size], np.rad2deg(1.0)),
-                                   ("angmax", amax, mu[n2 + amin.size:], np.rad2deg(1.0))):
-        arr = np.zeros(nl)
-        arr[idx] = vals / scale
-        mult[name] = arr
-    tol = st.binding_tol
-    labels = []
-    gen_ids = net.gen_id
-    labels += [(1, int(i), 2, f"gen:{int(i)}:pmin") for i in gen_ids[pg - net.pmin_mw / base <= tol]]
-    labels += [(1, int(i), 3, f"gen:{int(i)}:pmax") for i in gen_ids[net.pmax_mw / base - pg <= tol]]
-    near = np.abs(flow[lim]) >= rate * (1.0 - tol)
-    labels += [(2, int(i), 6, f"branch:{int(i)}:rate_from") for i in net.branch_id[lim[near & (flow[lim] > 0)]]]
-    labels += [(2, int(i), 7, f"branch:{int(i)}:rate_to") for i in net.branch_id[lim[near & (flow[lim] <= 0)]]]
-    labels += [(2, int(i), 8, f"branch:{int(i)}:angmin")
-               for i in net.branch_id[amin[np.deg2rad(dang[amin] - net.angmin_deg[amin]) <= tol]]]
-    labels += [(2, int(i), 9, f"branch:{int(i)}:angmax")
-               for i in net.branch_id[amax[np.deg2rad(net.angmax_deg[amax] - dang[amax]) <= tol]]]
-    binding = tuple(lab[3] for lab in sorted(labels))
+    binding = _dc_binding(net, p, pg, flow, dang, st.binding_tol)
     return DCOPFResult(
         status=out.status, message=STATUS_MESSAGES[out.status], objective=out.f / cs, pg_mw=pg * base,
-        va_deg=np.rad2deg(va), flow_mw=flow, lmp_per_mwh=out.lam / cs / base, multipliers=mult,
-        iterations=out.iterations, seconds=seconds,
-        max_p_mismatch_mw=float(np.max(np.abs(mismatch), initial=0.0)), max_limit_violation=max_viol,
+        va_deg=np.rad2deg(va), flow_mw=flow, lmp_per_mwh=out.lam / cs / base,
+        multipliers=_dc_multipliers(net, p, out, cs), iterations=out.iterations, seconds=seconds,
+        max_p_mismatch_mw=float(np.max(np.abs(mismatch), initial=0.0)),
+        max_limit_violation=max(0.0, *(float(np.max(v, initial=0.0)) for v in viol)),
         binding=binding, signature=binding_signature(binding), pd_mw=pd)
