@@ -335,3 +335,14 @@ def test_modified_networks_match_pypower(variant, nets):
         # PYPOWER's MU_ANGMAX column (branch column 20) for branch 1, in $/h per degree
         assert res.multipliers["angmax"][0] == pytest.approx(ref["branch"][0, 20], rel=1e-2)
         assert res.va_deg[0] - res.va_deg[1] == pytest.approx(0.5, abs=1e-5)
+
+
+def test_max_loadability_of_an_overloaded_base_is_negative_and_consistent(nets):
+    net = nets["ieee14"]
+    base = max_loadability(net)
+    over = max_loadability(net, net.pd_mw * 3, net.qd_mvar * 3)
+    assert over.converged and over.lam < 0
+    # the same limiting loading reached two ways: (1 + lam) x base = 3 (1 + lam') x base (hand algebra)
+    assert 3 * (1 + over.lam_limit) == pytest.approx(1 + base.lam_limit, rel=1e-6)
+    assert over.lam < over.lam_limit  # the back-off moves inwards for a negative lam too
+    assert ACOPF(net).solve(over.pd_mw, over.qd_mvar).converged
