@@ -95,6 +95,8 @@ def split_bars_svg(network: str, entries: dict, splits: tuple[str, ...]) -> str:
         ax.set_ylabel("restoration failure rate")
         ax.set_title(f"{network}: restoration failure rate per split (lower is better)")
         ax.grid(True, axis="y", lw=0.4, alpha=0.5)
-        ax.legend(fontsize=8, loc="best")
+        if names:  # below the axes, so that no bar is hidden behind it
+            ax.legend(fontsize=8, loc="upper center", bbox_to_anchor=(0.5, -0.12),
+                      ncol=min(len(names), 3), frameon=False)
         fig.tight_layout()
         return _svg(fig, f"flowgauge-{network}-bars")
