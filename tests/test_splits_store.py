@@ -88,6 +88,35 @@ def test_level_local_keeps_power_factor_and_ranges():
         np.testing.assert_allclose(x.qd_mvar * net.pd_mw, net.qd_mvar * x.pd_mw, rtol=1e-12, atol=1e-12)
 
 
+def test_level_ranges_scale_down_on_networks_near_their_capacity():
+    # hand arithmetic of the documented rule: top of the training range = 0.85 x capacity when
+    # that is below 1.15; every range scaled by the same factor; heavy levels below 0.99 x capacity
+    d = LevelLocal(capacity=1.0342)
+    s = 0.85 * 1.0342 / 1.15
+    np.testing.assert_allclose(d.level_used, (0.85 * s, 0.85 * 1.0342), rtol=1e-12)
+    r = Shifted(capacity=1.0342).ranges()
+    np.testing.assert_allclose(r["level_high"], (1.25 * s, 0.99 * 1.0342), rtol=1e-12)
+    np.testing.assert_allclose(r["level_low"], (0.55 * s, 0.78 * s), rtol=1e-12)
+    # a network with room to spare keeps the nominal ranges
+    assert LevelLocal(capacity=1.9525).level_used == (0.85, 1.15)
+    assert Shifted(capacity=1.9525).ranges()["level_high"] == (1.25, 1.40)
+
+
+def test_uniform_capacity_brackets_pypower_feasibility():
+    from pypower.api import ppoption, runopf
+
+    from flowgauge.network import to_ppc
+    from flowgauge.splits._designs import uniform_capacity
+
+    net = load_network("ieee30")
+    cap = uniform_capacity(net)
+    opt = ppoption(VERBOSE=0, OUT_ALL=0)
+    # reference: PYPOWER's runopf solves the uniformly scaled case just below the capacity and
+    # finds no solution 2 % above it
+    assert runopf(to_ppc(net, net.pd_mw * 0.999 * cap, net.qd_mvar * 0.999 * cap), opt)["success"]
+    assert not runopf(to_ppc(net, net.pd_mw * 1.02 * cap, net.qd_mvar * 1.02 * cap), opt)["success"]
+
+
 def test_draws_depend_only_on_seed_slot_and_attempt():
     net = load_network("ieee30")
     a = LevelLocal().draw(net, sample_rng(7, 3, 0)).pd_mw
@@ -97,9 +126,11 @@ def test_draws_depend_only_on_seed_slot_and_attempt():
     assert not np.allclose(a, c)
 
 
-def test_shifted_leaves_the_training_distribution():
+@pytest.mark.parametrize("capacity", [float("nan"), 1.0819])
+def test_shifted_leaves_the_training_distribution(capacity):
     net = load_network("ieee57")
-    d = Shifted()
+    d = Shifted(capacity=capacity)
+    s = LevelLocal(capacity=capacity).level_used[1] / 1.15  # the common scale of every level range
     outside = 0
     has = net.pd_mw > 0
     for i in range(200):
@@ -107,7 +138,7 @@ def test_shifted_leaves_the_training_distribution():
         ratio = x.pd_mw[has] / net.pd_mw[has]
         # a level-local draw has ratio = L x f with L in [0.85, 1.15], f in [0.95, 1.05]: some L must
         # satisfy max(ratio) / 1.05 <= L <= min(ratio) / 0.95 (hand derivation from the design)
-        explained = max(ratio.max() / 1.05, 0.85) <= min(ratio.min() / 0.95, 1.15)
+        explained = max(ratio.max() / 1.05, 0.85 * s) <= min(ratio.min() / 0.95, 1.15 * s)
         pf_changed = not np.allclose(x.qd_mvar[has] / x.pd_mw[has], net.qd_mvar[has] / net.pd_mw[has],
                                      rtol=1e-9, atol=1e-12)
         if not explained or pf_changed:

@@ -158,7 +158,7 @@ def build_split(network: str | Path | Network, split: str, *, samples: int, seed
     net = network if isinstance(network, Network) else load_network(network)
     out = Path(out)
     _check_out(out)
-    job = Job(net=net, net_hash=network_hash(net), design=design_for(split), seed=seed,
+    job = Job(net=net, net_hash=network_hash(net), design=design_for(split, net), seed=seed,
               acceptance=tuple(sorted(ACCEPTANCE.items())), max_attempts=max_attempts)
     settings = solver_settings()
     part = partial_dir(out)

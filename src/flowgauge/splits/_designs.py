@@ -7,7 +7,7 @@ A draw returns :class:`Loading` or a rejection reason (str); rejected draws are 
 
 from __future__ import annotations
 
-from dataclasses import asdict, dataclass
+from dataclasses import asdict, dataclass, replace
 from typing import Any, Callable
 
 import numpy as np
@@ -41,19 +41,64 @@ def _uniform(rng: np.random.Generator, lo_hi: tuple[float, float], size=None):
     return rng.uniform(lo_hi[0], lo_hi[1], size=size)
 
 
+# Level ranges are written for a network that can carry well over 115 % of its base load. Some
+# published test systems cannot (their uniform loadability is 103-108 % of base): there the
+# ranges are scaled down so that the top of the training range sits at HEADROOM x the network's
+# uniform capacity, which keeps the training and out-of-distribution ranges apart as designed
+# and leaves room above the training range for the heavy out-of-distribution levels.
+LEVEL_TOP = 1.15
+HEADROOM = 0.85
+HIGH_CAP = 0.99  # heavy out-of-distribution levels stay below this share of the capacity
+
+
+def level_scale(capacity: float) -> float:
+    """Factor applied to every system-wide level range: 1.0 unless the network's uniform
+    capacity (largest multiple of its base loading with a feasible AC-OPF) is below
+    ``LEVEL_TOP / HEADROOM``."""
+    if not np.isfinite(capacity):
+        return 1.0
+    return min(1.0, HEADROOM * capacity / LEVEL_TOP)
+
+
+def _scaled(lo_hi: tuple[float, float], s: float) -> tuple[float, float]:
+    return (lo_hi[0] * s, lo_hi[1] * s)
+
+
+def uniform_capacity(net: Network) -> float:
+    """The network's uniform capacity: 1 + the maximum loadability along its base loading,
+    rounded down to 4 decimals so that the manifest records exactly the value the draws use."""
+    from ..opf import max_loadability
+    lr = max_loadability(net, net.pd_mw, net.qd_mvar, net.pd_mw, net.qd_mvar)
+    if lr.status != "converged" or not np.isfinite(lr.lam) or lr.lam <= 0:
+        raise InputError(f"the base loading has no feasible margin along its own direction "
+                         f"(maximum loadability status {lr.status!r}); cannot place the level ranges",
+                         where=f"network {net.name!r}")
+    return float(np.floor((1.0 + lr.lam) * 1e4) / 1e4)
+
+
 @dataclass(frozen=True)
 class LevelLocal:
     """Each load's power = base x system-wide level x local factor; power factor kept."""
 
     name: str = "level-local"
-    level: tuple[float, float] = (0.85, 1.15)
+    level: tuple[float, float] = (0.85, LEVEL_TOP)
     local_factor: tuple[float, float] = (0.95, 1.05)
+    capacity: float = float("nan")  # the network's uniform capacity (see level_scale)
+
+    def fitted(self, net: Network) -> "LevelLocal":
+        return replace(self, capacity=uniform_capacity(net))
+
+    @property
+    def level_used(self) -> tuple[float, float]:
+        return _scaled(self.level, level_scale(self.capacity))
 
     def parameters(self, net: Network) -> dict[str, Any]:
-        return {"level": list(self.level), "local_factor": list(self.local_factor)}
+        return {"level_nominal": list(self.level), "local_factor": list(self.local_factor),
+                "uniform_capacity": self.capacity, "level_scale": level_scale(self.capacity),
+                "level": list(self.level_used)}
 
     def draw(self, net: Network, rng: np.random.Generator, solver=None) -> Loading | str:
-        scale = _uniform(rng, self.level) * _uniform(rng, self.local_factor, net.n_load)
+        scale = _uniform(rng, self.level_used) * _uniform(rng, self.local_factor, net.n_load)
         return Loading(net.pd_mw * scale, net.qd_mvar * scale)
 
 
@@ -69,7 +114,8 @@ class Shifted:
     - ``power-factor``: a training-range level, but every load's power-factor angle shifted by
       one system-wide angle of random sign.
     Local factors are narrower than in training, so that no draw of the level and local
-    factor ranges of ``LevelLocal`` (defaults) can produce a level or regional loading.
+    factor ranges of ``LevelLocal`` can produce a level or regional loading; all level ranges
+    are scaled with the same ``level_scale`` as the training design.
     """
 
     name: str = "shifted"
@@ -77,12 +123,30 @@ class Shifted:
     level_high: tuple[float, float] = (1.25, 1.40)
     heavy: tuple[float, float] = (1.15, 1.35)
     light: tuple[float, float] = (0.60, 0.85)
-    train_level: tuple[float, float] = (0.85, 1.15)
+    train_level: tuple[float, float] = (0.85, LEVEL_TOP)
     angle_shift_rad: tuple[float, float] = (0.10, 0.30)
     local_factor: tuple[float, float] = (0.97, 1.03)
+    capacity: float = float("nan")  # the network's uniform capacity (see level_scale)
+
+    def fitted(self, net: Network) -> "Shifted":
+        return replace(self, capacity=uniform_capacity(net))
+
+    def ranges(self) -> dict[str, tuple[float, float]]:
+        """The level ranges the draws use: nominal ranges x level_scale, heavy levels capped."""
+        s = level_scale(self.capacity)
+        out = {k: _scaled(getattr(self, k), s) for k in ("level_low", "level_high", "heavy", "light", "train_level")}
+        if np.isfinite(self.capacity):
+            lo, hi = out["level_high"]
+            out["level_high"] = (lo, min(hi, HIGH_CAP * self.capacity))
+        return out
 
     def parameters(self, net: Network) -> dict[str, Any]:
-        p = {k: list(v) for k, v in asdict(self).items() if k != "name"}
+        p = {f"{k}_nominal": list(v) for k, v in asdict(self).items() if isinstance(v, tuple)}
+        p.update({k: list(v) for k, v in self.ranges().items()})
+        p["angle_shift_rad"] = list(self.angle_shift_rad)
+        p["local_factor"] = list(self.local_factor)
+        p["uniform_capacity"] = self.capacity
+        p["level_scale"] = level_scale(self.capacity)
         p["kinds"] = list(_OOD_KINDS)
         p["region_a_bus_id"] = net.bus_id[two_regions(net)].tolist()
         return p
@@ -91,16 +155,17 @@ class Shifted:
         kind = _OOD_KINDS[int(rng.integers(len(_OOD_KINDS)))]
         local = _uniform(rng, self.local_factor, net.n_load)
         pd0, qd0 = net.pd_mw, net.qd_mvar
+        r = self.ranges()
         if kind in ("level-low", "level-high"):
-            scale = _uniform(rng, self.level_low if kind == "level-low" else self.level_high) * local
+            scale = _uniform(rng, r["level_low"] if kind == "level-low" else r["level_high"]) * local
             return Loading(pd0 * scale, qd0 * scale, kind=kind)
         if kind == "regional":
             in_a = two_regions(net)[net.load_bus_idx]
-            heavy, light = _uniform(rng, self.heavy), _uniform(rng, self.light)
+            heavy, light = _uniform(rng, r["heavy"]), _uniform(rng, r["light"])
             a_heavy = bool(rng.integers(2))
             scale = np.where(in_a == a_heavy, heavy, light) * local
             return Loading(pd0 * scale, qd0 * scale, kind=kind)
-        level = _uniform(rng, self.train_level)
+        level = _uniform(rng, r["train_level"])
         shift = _uniform(rng, self.angle_shift_rad) * (1.0 if rng.integers(2) else -1.0)
         pd = pd0 * level * local
         angle = np.clip(np.arctan2(qd0, np.where(pd0 == 0, 1.0, pd0)) + shift, -1.4, 1.4)
@@ -118,6 +183,9 @@ class Edge:
     name: str = "edge"
     margin: tuple[float, float] = (0.002, 0.03)
     weight: tuple[float, float] = (0.0, 1.0)
+
+    def fitted(self, net: Network) -> "Edge":
+        return self
 
     def parameters(self, net: Network) -> dict[str, Any]:
         return {"margin": list(self.margin), "direction_weight": list(self.weight),
@@ -142,7 +210,9 @@ DESIGNS: dict[str, Callable[[], Any]] = {"level-local": LevelLocal, "shifted": S
 SPLIT_DESIGN = {"train": "level-local", "test-id": "level-local", "test-ood": "shifted", "test-edge": "edge"}
 
 
-def design_for(split: str):
+def design_for(split: str, net: Network | None = None):
+    """The design of ``split``; with ``net``, fitted to that network (level ranges placed)."""
     if split not in SPLIT_DESIGN:
         raise InputError(f"expected one of {', '.join(SPLIT_DESIGN)}, got {split!r}", where="split")
-    return DESIGNS[SPLIT_DESIGN[split]]()
+    design = DESIGNS[SPLIT_DESIGN[split]]()
+    return design if net is None else design.fitted(net)
