@@ -200,7 +200,7 @@ def test_not_utf8(tmp_path):
 def test_missing_file_and_directory(tmp_path):
     with pytest.raises(InputError, match=r"nope\.json: no such file"):
         read_network_json(tmp_path / "nope.json")
-    with pytest.raises(InputError, match=r"expected a network file, got a directory"):
+    with pytest.raises(InputError, match=r"is a folder; expected a network file"):
         read_network_json(tmp_path)
 
 

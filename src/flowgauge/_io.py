@@ -24,6 +24,7 @@ __all__ = [
     "atomic_write_bytes",
     "atomic_write_text",
     "round_sig",
+    "read_input_bytes",
 ]
 
 DEFAULT_DIGITS = 10
@@ -126,6 +127,34 @@ def atomic_write_bytes(path: str | os.PathLike, data: bytes) -> None:
         except FileNotFoundError:
             pass
         raise
+
+
+def read_input_bytes(path: str | os.PathLike, *, expected: str = "a file",
+                     max_bytes: int | None = None) -> bytes:
+    """Read a file the user named; every failure is an :class:`InputError` naming the path.
+
+    ``expected`` says what the file should be ("a network file"); ``max_bytes`` caps the size.
+    """
+    from .errors import InputError
+
+    path = Path(path)
+    try:
+        if path.is_dir():
+            raise InputError(f"is a folder; expected {expected}", where=str(path))
+        if max_bytes is not None and path.stat().st_size > max_bytes:
+            raise InputError(f"the file has {path.stat().st_size:,} bytes, over the limit of {max_bytes:,} "
+                             "bytes (raise it with --max-bytes, or max_bytes= in Python)", where=str(path))
+        with open(path, "rb") as f:
+            data = f.read() if max_bytes is None else f.read(max_bytes + 1)
+    except FileNotFoundError:
+        raise InputError("no such file", where=str(path)) from None
+    except PermissionError:
+        raise InputError("cannot read the file (permission denied)", where=str(path)) from None
+    except OSError as exc:
+        raise InputError(f"cannot read the file ({exc.strerror})", where=str(path)) from None
+    if max_bytes is not None and len(data) > max_bytes:  # the file grew after stat()
+        raise InputError(f"the file has more than {max_bytes:,} bytes, the limit", where=str(path))
+    return data
 
 
 def atomic_write_text(path: str | os.PathLike, text: str) -> None:

@@ -27,6 +27,7 @@ from typing import Any
 
 import numpy as np
 
+from .._io import read_input_bytes
 from ..errors import InputError
 from ._model import BUS_PQ, Network
 
@@ -150,16 +151,11 @@ def _skip_optional_sections(lines: list[str], i: int, path: str) -> None:
 
 
 def _parse(path: Path) -> _Cards:
+    raw = read_input_bytes(path, expected="a network file")
     try:
-        text = path.read_bytes().decode("ascii", errors="strict")
-    except FileNotFoundError:
-        raise InputError("no such file", where=str(path)) from None
-    except IsADirectoryError:
-        raise InputError("expected a network file, got a directory", where=str(path)) from None
-    except OSError as exc:
-        raise InputError(f"cannot read the file ({exc.strerror})", where=str(path)) from None
+        text = raw.decode("ascii", errors="strict")
     except UnicodeDecodeError as exc:
-        line = path.read_bytes()[: exc.start].count(b"\n") + 1
+        line = raw[: exc.start].count(b"\n") + 1
         raise InputError("expected plain ASCII text (IEEE Common Data Format)", where=f"{path}:{line}") from None
     src = str(path)
     lines = [ln.rstrip("\r\n").ljust(127) for ln in text.splitlines()]

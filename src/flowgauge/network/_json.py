@@ -14,7 +14,7 @@ from typing import Any
 
 import numpy as np
 
-from .._io import atomic_write_bytes, canonical_json
+from .._io import atomic_write_bytes, canonical_json, read_input_bytes
 from ..errors import InputError
 from ._model import BUS_PQ, BUS_PV, BUS_REF, Network
 
@@ -270,13 +270,7 @@ def read_network_json(path: str | Path) -> Network:
     """Read, validate and check a network file in our JSON format."""
     path = Path(path)
     try:
-        text = path.read_text(encoding="utf-8")
-    except FileNotFoundError:
-        raise InputError("no such file", where=str(path)) from None
-    except IsADirectoryError:
-        raise InputError("expected a network file, got a directory", where=str(path)) from None
-    except OSError as exc:
-        raise InputError(f"cannot read the file ({exc.strerror})", where=str(path)) from None
+        text = read_input_bytes(path, expected="a network file").decode("utf-8")
     except UnicodeDecodeError as exc:
         raise InputError(f"not UTF-8 text ({exc.reason} at byte {exc.start})", where=str(path)) from None
     try:

@@ -10,7 +10,7 @@ from pathlib import Path
 
 import numpy as np
 
-from .._io import canonical_json, hash_arrays, sha256_hex
+from .._io import canonical_json, hash_arrays, read_input_bytes, sha256_hex
 from ..errors import InputError
 from ._format import (
     ARRAY_FIELDS, DEFAULT_MAX_BYTES, FORMAT_NAME, FORMAT_VERSION, HEADER_KEYS, Problems,
@@ -107,7 +107,7 @@ def load_predictions(path: str | os.PathLike, *, max_bytes: int = DEFAULT_MAX_BY
 def read_predictions(path: str | os.PathLike, *, max_bytes: int = DEFAULT_MAX_BYTES):
     """``(Predictions or None, Problems)``; file-level errors raise InputError at once."""
     path = Path(path)
-    data = _read_bytes(path, max_bytes)
+    data = read_input_bytes(path, expected="a predictions file (.json or .parquet)", max_bytes=max_bytes)
     problems = Problems()
     if data[:4] == PARQUET_MAGIC:
         from ._parquet import read_parquet
@@ -118,28 +118,6 @@ def read_predictions(path: str | os.PathLike, *, max_bytes: int = DEFAULT_MAX_BY
         return None, problems
     header, sample_id, arrays, inference_ms = parsed
     return make_predictions(header, sample_id, arrays, inference_ms, fmt, path), problems
-
-
-def _read_bytes(path: Path, max_bytes: int) -> bytes:
-    try:
-        size = path.stat().st_size
-        if path.is_dir():
-            raise InputError("is a folder; expected a predictions file (.json or .parquet)", where=str(path))
-        if size > max_bytes:
-            raise InputError(
-                f"the file has {size:,} bytes, over the limit of {max_bytes:,} bytes "
-                "(raise it with --max-bytes, or max_bytes= in Python)", where=str(path))
-        with open(path, "rb") as f:
-            data = f.read()
-        if len(data) > max_bytes:  # the file grew after stat()
-            raise InputError(f"the file has more than {max_bytes:,} bytes, the limit", where=str(path))
-        return data
-    except FileNotFoundError:
-        raise InputError("no such file", where=str(path)) from None
-    except PermissionError:
-        raise InputError("cannot read the file (permission denied)", where=str(path)) from None
-    except IsADirectoryError:
-        raise InputError("is a folder; expected a predictions file", where=str(path)) from None
 
 
 def _read_json(data: bytes, path: Path, problems: Problems):

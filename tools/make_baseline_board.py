@@ -1,0 +1,42 @@
+"""Write the baseline entries of the committed leaderboard: every baseline on every frozen test
+split, as leaderboard/submissions/<network>/<split>/<baseline>.json.
+
+    python tools/make_baseline_board.py [--networks demo ieee14 ...]
+    flowgauge rank          # then rescore and rebuild the tables and the page
+
+Run it after the frozen splits change (their hashes are recorded in every predictions file).
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+from pathlib import Path
+
+from flowgauge.baselines import BASELINES, write_baseline
+from flowgauge.splits import load_split, splits_root
+
+ROOT = Path(__file__).resolve().parents[1]
+TEST_SPLITS = ("test-id", "test-ood", "test-edge")
+
+
+def main(argv: list[str] | None = None) -> int:
+    ap = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
+    ap.add_argument("--networks", nargs="+", default=None, help="default: every network with frozen splits")
+    ap.add_argument("--out", type=Path, default=ROOT / "leaderboard" / "submissions")
+    args = ap.parse_args(argv)
+    root = splits_root()
+    networks = args.networks or sorted(p.name for p in root.iterdir() if p.is_dir())
+    for network in networks:
+        train = load_split(root / network / "train")
+        for split_name in TEST_SPLITS:
+            split = load_split(root / network / split_name)
+            for name in sorted(BASELINES):
+                out = args.out / network / split_name / f"{name}.json"
+                write_baseline(name, split, out, train=train)
+                print(f"{network}/{split_name}: {name} -> {out.relative_to(ROOT)}", flush=True)
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
