@@ -145,7 +145,7 @@ def read_input_bytes(path: str | os.PathLike, *, expected: str = "a file",
             raise InputError(f"the file has {path.stat().st_size:,} bytes, over the limit of {max_bytes:,} "
                              "bytes (raise it with --max-bytes, or max_bytes= in Python)", where=str(path))
         with open(path, "rb") as f:
-            data = f.read() if max_bytes is None else f.read(max_bytes + 1)
+            data = f.read()  # f.read(n) would allocate n bytes up front
     except FileNotFoundError:
         raise InputError("no such file", where=str(path)) from None
     except PermissionError:
