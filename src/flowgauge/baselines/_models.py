@@ -34,16 +34,17 @@ class Prediction:
 
 def network_voltage_setpoints(net: Network) -> np.ndarray:
     """Voltage magnitude per bus, shape (n_bus,) [p.u.]: each generator bus at its (first)
-    generator's setpoint, every other bus at the network's stored voltage."""
+    generator's setpoint, every other bus at the network's stored voltage, each held within its
+    bus's limits (some published cases store setpoints above the limits added to them later)."""
     vm = np.asarray(net.vm_pu, float).copy()
     idx = net.gen_bus_idx
     first = np.unique(idx, return_index=True)[1]
     vm[idx[first]] = np.asarray(net.vg_pu, float)[first]
-    return vm
+    return np.clip(vm, net.vmin_pu, net.vmax_pu)
 
 
 def dc_opf(net: Network, pd_mw: np.ndarray, sample_id: np.ndarray) -> Prediction:
-    """The DC-OPF dispatch of each sample, with the network's voltage setpoints."""
+    """The DC-OPF dispatch of each sample, with the network's voltage setpoints (within limits)."""
     from ..opf import solve_dcopf
 
     pd = np.asarray(pd_mw, float)
