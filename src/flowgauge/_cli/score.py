@@ -6,6 +6,7 @@ import tempfile
 from pathlib import Path
 
 import click
+from rich import box
 from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeElapsedColumn
 from rich.table import Table
 
@@ -137,10 +138,10 @@ def demo(workdir, samples) -> None:
     else:
         result = run(workdir)
     kinds = sorted(set(result.sources.values()))
-    t = Table(title=f"demo network, {' and '.join(kinds)} splits", header_style="bold",
+    t = Table(title=f"demo network, {' and '.join(kinds)} splits", header_style="bold", box=box.SIMPLE_HEAD,
               caption="failure rate: lower is better; gaps: closer to 0 is better")
-    for col in ("baseline", "split", "samples", "failure rate", "main cause", "restored gap %", "raw gap %"):
-        t.add_column(col, justify="left" if col in ("baseline", "split", "main cause") else "right")
+    for col in ("baseline", "split", "samples", "failure\nrate", "main cause", "restored\ngap %", "raw\ngap %"):
+        t.add_column(col, justify="left" if col in ("baseline", "split", "main cause") else "right", no_wrap=True)
     for (name, split), card in result.scorecards.items():
         a = card.aggregates
         rg = a["restored_gap_pct"]
