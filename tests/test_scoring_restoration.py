@@ -5,7 +5,7 @@ import numpy as np
 import pytest
 
 from flowgauge.network import Network, load_network, to_ppc
-from flowgauge.scoring import (DEFAULT_PROFILE, CAUSES, bound_violation, generator_cost_per_h, optimality_gap_pct,
+from flowgauge.scoring import (STRICT_PROFILE, CAUSES, bound_violation, generator_cost_per_h, optimality_gap_pct,
                                restore)
 
 
@@ -50,7 +50,7 @@ def test_three_bus_case_worked_by_hand():
     np.testing.assert_allclose(bound_violation(pg[[0, 2]], net.pmin_mw, net.pmax_mw), [20.0, 0.0], atol=1e-12)
     np.testing.assert_allclose(bound_violation(vm[[0, 2]], net.vmin_pu, net.vmax_pu), [0.0, 0.03], atol=1e-12)
 
-    r = restore(net, pd_mw=pd, qd_mvar=np.zeros((3, 1)), pg_mw=pg, vm_pu=vm, profile=DEFAULT_PROFILE)
+    r = restore(net, pd_mw=pd, qd_mvar=np.zeros((3, 1)), pg_mw=pg, vm_pu=vm, profile=STRICT_PROFILE)
     # S1 diverges (hand): with bus 3 fed by two lines of 0.1 p.u. from sources at 1.0 p.u., each
     # line carries at most V_i V_3 / x <= 10 p.u., and V_3 <= 1 with no reactive source at bus 3,
     # so at most 2000 MW can reach the 5000 MW load: no power flow solution exists.
@@ -92,7 +92,7 @@ def test_restoration_matches_pypower_runpf_on_ieee118(rng):
     vg = net.vg_pu + rng.uniform(-0.01, 0.01, (s, net.n_gen))
     vm[:, net.gen_bus_idx] = vg  # every generator of a bus shares the bus's setpoint in ieee118
     vg = vm[:, net.gen_bus_idx]
-    r = restore(net, pd_mw=pd, qd_mvar=qd, pg_mw=pg, vm_pu=vm, profile=DEFAULT_PROFILE)
+    r = restore(net, pd_mw=pd, qd_mvar=qd, pg_mw=pg, vm_pu=vm, profile=STRICT_PROFILE)
     assert r.converged.all()
     opt = ppoption(VERBOSE=0, OUT_ALL=0, PF_TOL=1e-10, ENFORCE_Q_LIMS=0)
     for k in range(s):

@@ -100,7 +100,7 @@ def test_bad_options(tmp_path, monkeypatch):
     path = write_reference(sp, tmp_path / "ref.json")
     with pytest.raises(InputError, match=r"The 'workers' parameter of score must be an integer >= 1. Got 0"):
         score(path, sp, workers=0)
-    with pytest.raises(InputError, match="The 'profile' parameter of score must be one of"):
+    with pytest.raises(InputError, match="unknown scoring profile 'lenient'; known profiles: reactive-limits, strict"):
         score(path, sp, profile="lenient")
     with pytest.raises(InputError, match="cannot connect to a Dask scheduler"):
         score(path, sp, scheduler="tcp://127.0.0.1:9")

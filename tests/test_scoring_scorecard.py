@@ -71,17 +71,39 @@ def test_bad_scorecard_files(tmp_path, content, message):
         read_scorecard(tmp_path / "missing.json")
 
 
-def test_default_profile_is_the_documented_one():
-    # docs/metrics.md documents these common-practice tolerances; any change needs a new version
-    assert DEFAULT_PROFILE.name == "default" and DEFAULT_PROFILE.version == 1
-    assert dict(DEFAULT_PROFILE.tolerances) == {
+def test_strict_profile_is_the_version_1_profile_unchanged():
+    # docs/metrics.md documents these common-practice tolerances; the strict profile is the
+    # profile of scorecard format 1, recorded under its old name, with the same hash as before
+    # profile 2 existed, so its scorecards stay the same bytes.
+    strict = get_profile("strict")
+    assert strict.to_dict()["name"] == "default" and strict.version == 1
+    assert dict(strict.tolerances) == {
         "active_power_mw": 0.1, "reactive_power_mvar": 0.1, "balance_mw": 0.1, "balance_mvar": 0.1,
         "voltage_pu": 0.001, "thermal_pct_of_rating": 0.5, "angle_deg": 0.1}
-    assert dict(DEFAULT_PROFILE.powerflow) == {"start": "dc", "tolerance_pu": 1e-8, "max_iterations": 20}
-    assert DEFAULT_PROFILE.hash == "f481ecd70bfae94999c50b5083c6fedc0516fb856dc12dd8ad8c3d66499be604"
-    with pytest.raises(InputError,
-                       match=r"The 'profile' parameter of score must be one of \['default'\]. Got 'strict'"):
-        get_profile("strict")
+    assert dict(strict.powerflow) == {"start": "dc", "tolerance_pu": 1e-8, "max_iterations": 20}
+    assert strict.hash == "f481ecd70bfae94999c50b5083c6fedc0516fb856dc12dd8ad8c3d66499be604"
+
+
+def test_default_profile_is_the_documented_one():
+    # docs/metrics.md documents profile 2 and the reason for each tolerance
+    assert DEFAULT_PROFILE is get_profile(None) is get_profile("reactive-limits")
+    assert DEFAULT_PROFILE.to_dict()["name"] == "reactive-limits" and DEFAULT_PROFILE.version == 2
+    assert dict(DEFAULT_PROFILE.tolerances) == {
+        "active_power_mw": 0.1, "active_power_pct_of_rating": 1.0, "reactive_power_mvar": 0.1,
+        "reactive_power_pct_of_rating": 1.0, "balance_mw": 0.1, "balance_mvar": 0.1, "voltage_pu": 0.001,
+        "thermal_pct_of_rating": 1.0, "angle_deg": 0.1}
+    assert set(DEFAULT_PROFILE.reasons) == set(DEFAULT_PROFILE.tolerances)
+    assert DEFAULT_PROFILE.powerflow["enforce_q_limits"] is True
+    assert DEFAULT_PROFILE.grading["solved_threshold_pct"] == 1.0
+
+
+@pytest.mark.parametrize("name, message", [
+    ("lenient", r"unknown scoring profile 'lenient'; known profiles: reactive-limits, strict"),
+    ("default", r"the profile called 'default' before version 2 is now called 'strict'"),
+])
+def test_unknown_profile_lists_the_known_ones(name, message):
+    with pytest.raises(InputError, match=message):
+        get_profile(name)
 
 
 def test_summary_and_violation_stats_by_hand():

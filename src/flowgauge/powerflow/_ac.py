@@ -13,6 +13,7 @@ from ._dc import dc_angles, reference_pg
 from ._newton import LINEAR_SOLVERS, newton, stacked_lu
 from ._prepare import Prepared, bus_injection_setpoints, prepared, stack_input
 from ._result import BatchPowerFlowResult, PowerFlowResult
+from ._switching import MAX_SWITCH_ROUNDS, run_switching
 from ._status import CONVERGED, STATUSES
 
 __all__ = ["solve_powerflow", "solve_powerflow_batch", "INITS", "default_vm_pu"]
@@ -21,8 +22,6 @@ INITS = ("flat", "dc", "given")
 _EPS = np.finfo(float).eps
 # Samples per Newton chunk: at most this many float entries in the largest working array.
 BATCH_ENTRIES = 2.5e7
-# A reactive output beyond its limit by more than this counts as a violation [MVAr].
-Q_LIMIT_SLACK_MVAR = 5e-6
 
 
 def default_vm_pu(net: Network) -> np.ndarray:
@@ -105,7 +104,7 @@ def _assemble_fields(p: Prepared, vm, va, pg, qg_set, pd, qd, fixed_q) -> dict:
                 sf_mva=np.abs(sf), st_mva=np.abs(st))
 
 
-def _run(p, pv, pq, vm0, va0, sbus, tol, max_iter, linear):
+def _run(p, pv, pq, vm0, va0, sbus, tol, max_iter, linear, hold=None):
     """Newton-Raphson for all samples, in chunks that keep the working arrays bounded."""
     pat = p.pattern(pv, pq)
     lu = stacked_lu(pat) if linear == "stacked" else None
@@ -113,15 +112,17 @@ def _run(p, pv, pq, vm0, va0, sbus, tol, max_iter, linear):
     rows = max(1, int(BATCH_ENTRIES // per_sample))
     n_s = sbus.shape[0]
     if n_s <= rows:
-        return newton(pat, p.adm.ybus, vm0, va0, sbus, tol, int(max_iter), linear)
+        return newton(pat, p.adm.ybus, vm0, va0, sbus, tol, int(max_iter), linear, hold)
     parts = [newton(pat, p.adm.ybus, vm0[i:i + rows], va0[i:i + rows], sbus[i:i + rows], tol,
-                    int(max_iter), linear) for i in range(0, n_s, rows)]  # loop over chunks of samples
+                    int(max_iter), linear, None if hold is None else hold[i:i + rows])
+             for i in range(0, n_s, rows)]  # loop over chunks of samples
     return tuple(np.concatenate([part[k] for part in parts]) for k in range(5))
 
 
 def solve_powerflow_batch(net: Network, *, pd_mw, qd_mvar, pg_mw=None, vm_pu=None, va_deg=None,
                           init: str = "flat", tol: float = 1e-8, max_iter: int = 20,
-                          linear: str = "stacked") -> BatchPowerFlowResult:
+                          linear: str = "stacked", enforce_q_limits: bool = False,
+                          max_switch_rounds: int = MAX_SWITCH_ROUNDS) -> BatchPowerFlowResult:
     """AC power flows of many samples of one network (Newton-Raphson, polar coordinates).
 
     ``pd_mw``, ``qd_mvar``: loads, shape (n_samples, n_load) [MW], [MVAr].
@@ -134,7 +135,11 @@ def solve_powerflow_batch(net: Network, *, pd_mw, qd_mvar, pg_mw=None, vm_pu=Non
     flow of the specified injections) or "given". Converged when the largest absolute
     mismatch is below ``tol`` [p.u.] within ``max_iter`` Newton steps; no fallback, no clipping.
     Gives the same numbers as :func:`solve_powerflow` sample by sample. ``linear``: how the
-    Newton steps are solved, a key of ``LINEAR_SOLVERS`` (see docs/powerflow.md). Returns a
+    Newton steps are solved, a key of ``LINEAR_SOLVERS`` (see docs/powerflow.md).
+    ``enforce_q_limits``: PV buses switch to PQ at a violated reactive limit and back
+    (``_switching``: rules in docs/powerflow.md); ``iterations`` then counts the Newton steps
+    of all rounds, ``at_q_limit`` records the generators held at a limit, and a sample still
+    switching after ``max_switch_rounds`` rounds ends ``switching_unsettled``. Returns a
     :class:`BatchPowerFlowResult`; failure is data (``status``), never an exception.
     """
     t0 = time.perf_counter()
@@ -154,12 +159,28 @@ def solve_powerflow_batch(net: Network, *, pd_mw, qd_mvar, pg_mw=None, vm_pu=Non
     fixed = np.broadcast_to(p.gens_fixed_q, pg.shape)
     sbus = bus_injection_setpoints(p, pg, qg, pd, qd)
     va0 = _start_angles(p, init, va_in, sbus.real)
-    vm_s, va_s, its, status, mis = _run(p, p.pv, p.pq, vm, va0, sbus, tol, max_iter, linear)
+    at_limit = None
+    if enforce_q_limits:
+        vm_s, va_s, its, status, mis, qg, at_limit = _solve_switching(p, pg, qg, pd, qd, vm, va0, tol, max_iter,
+                                                                      linear, max_switch_rounds)
+        fixed = fixed | (at_limit != 0)
+    else:
+        vm_s, va_s, its, status, mis = _run(p, p.pv, p.pq, vm, va0, sbus, tol, max_iter, linear)
     fields = _assemble(p, vm_s, va_s, pg, qg, pd, qd, fixed)
     msg = np.array([STATUSES[s] for s in status.tolist()], dtype=str)
     return BatchPowerFlowResult(converged=status == CONVERGED, status=status, message=msg,
                                 iterations=its, max_mismatch_pu=mis, seconds=time.perf_counter() - t0,
-                                **fields)
+                                at_q_limit=at_limit, **fields)
+
+
+def _solve_switching(p, pg, qg, pd, qd, vm, va0, tol, max_iter, linear, max_rounds=MAX_SWITCH_ROUNDS):
+    if int(max_rounds) != max_rounds or max_rounds < 0:
+        raise InputError(f"must be a non-negative integer, got {max_rounds!r}", where="max_switch_rounds")
+
+    def run(pv, pq, vm_, va_, sbus_, hold):
+        return _run(p, pv, pq, vm_, va_, sbus_, tol, max_iter, linear, hold)
+
+    return run_switching(p, run, pg, qg, pd, qd, vm, va0, int(max_rounds))
 
 
 def solve_powerflow(net: Network, *, pd_mw=None, qd_mvar=None, pg_mw=None, vm_pu=None, va_deg=None,
@@ -170,10 +191,8 @@ def solve_powerflow(net: Network, *, pd_mw=None, qd_mvar=None, pg_mw=None, vm_pu
     ``pd_mw``, ``qd_mvar`` (n_load,) [MW], [MVAr], default the network's loads;
     ``pg_mw`` (n_gen,) [MW], ``vm_pu`` (n_bus,) [p.u.], ``va_deg`` (n_bus,) [deg],
     ``init``, ``tol`` [p.u.], ``max_iter``: as in :func:`solve_powerflow_batch`.
-    ``enforce_q_limits``: after convergence, every PV bus whose generators' total reactive
-    output lies outside the sum of their limits becomes a PQ bus with its generators at
-    that limit, and the power flow is solved again from the last voltages; repeated until no
-    PV bus violates (reference buses are never converted). ``iterations`` then counts the
+    ``enforce_q_limits``: PV buses switch to PQ at a violated reactive limit and back, as in
+    :func:`solve_powerflow_batch` (rules in docs/powerflow.md); ``iterations`` then counts the
     Newton steps of all rounds. Returns a :class:`PowerFlowResult`.
     """
     t0 = time.perf_counter()
@@ -185,37 +204,18 @@ def solve_powerflow(net: Network, *, pd_mw=None, qd_mvar=None, pg_mw=None, vm_pu
     vm = stack_input("vm_pu", vm_pu, default_vm_pu(net), net.n_bus, None)
     va_in = None if va_deg is None else stack_input("va_deg", va_deg, net.va_deg, net.n_bus, None)
     qg = net.qg_mvar[None, :].copy()
-    gb = net.gen_bus_idx
     sbus = bus_injection_setpoints(p, pg, qg, pd, qd)
     va = _start_angles(p, init, va_in, sbus.real)
-    pv, pq, total = p.pv, p.pq, 0
     fixed = p.gens_fixed_q[None, :]
-    for _ in range(net.n_bus + 1):
-        vm, va, its, status, mis = _run(p, pv, pq, vm, va, sbus, tol, max_iter, "loop")
-        total += int(its[0])
-        fields = _assemble(p, vm, va, pg, qg, pd, qd, fixed)
-        if not enforce_q_limits or status[0] != CONVERGED:
-            break
-        low, high = _q_violations(p, pv, fields["qg_mvar"][0])
-        if low.size + high.size == 0:
-            break
-        qg[0, np.isin(gb, low)] = net.qmin_mvar[np.isin(gb, low)]
-        qg[0, np.isin(gb, high)] = net.qmax_mvar[np.isin(gb, high)]
-        pv = np.setdiff1d(pv, np.r_[low, high])
-        pq = np.union1d(pq, np.r_[low, high])
-        fixed = ~np.isin(gb, np.r_[pv, p.ref])[None, :]
-        sbus = bus_injection_setpoints(p, pg, qg, pd, qd)
+    if enforce_q_limits:
+        vm, va, its, status, mis, qg, at_limit = _solve_switching(p, pg, qg, pd, qd, vm, va, tol, max_iter, "loop")
+        fixed = fixed | (at_limit != 0)
+    else:
+        vm, va, its, status, mis = _run(p, p.pv, p.pq, vm, va, sbus, tol, max_iter, "loop")
+    total = int(its[0])
+    fields = _assemble(p, vm, va, pg, qg, pd, qd, fixed)
     one = {k: a[0] for k, a in fields.items()}
     return PowerFlowResult(converged=bool(status[0] == CONVERGED), status=str(status[0]),
                            message=STATUSES[str(status[0])], iterations=total,
                            max_mismatch_pu=float(mis[0]), seconds=time.perf_counter() - t0, **one)
 
-
-def _q_violations(p: Prepared, pv: np.ndarray, qg_mvar: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """PV buses whose generators' total reactive output is below / above their total limits."""
-    net = p.net
-    gb = net.gen_bus_idx
-    q = np.bincount(gb, weights=qg_mvar, minlength=net.n_bus)[pv]
-    qmin = np.bincount(gb, weights=net.qmin_mvar, minlength=net.n_bus)[pv]
-    qmax = np.bincount(gb, weights=net.qmax_mvar, minlength=net.n_bus)[pv]
-    return pv[q < qmin - Q_LIMIT_SLACK_MVAR], pv[q > qmax + Q_LIMIT_SLACK_MVAR]

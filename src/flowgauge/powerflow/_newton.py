@@ -130,12 +130,37 @@ def _mismatch(ybus: sp.csr_matrix, vm, e, sbus, pvpq, pq):
     return np.concatenate([mis.real[:, pvpq], mis.imag[:, pq]], axis=1), i_bus
 
 
+def _hold_voltage(pat: JacobianPattern, hold: np.ndarray, data: np.ndarray, f: np.ndarray) -> None:
+    """Replace, in place, the reactive-mismatch row of every held bus by ``dVm = 0``: the row's
+    entries become those of the identity and its mismatch zero, so the bus keeps its voltage
+    magnitude (a PV bus written in the pattern of a PQ bus). ``hold`` (S, n_pq) bool by
+    reactive row; ``data`` (nnz, S); ``f`` (S, n)."""
+    q_entry, rows, ident = _cached(pat, "hold", lambda: _reactive_entries(pat))
+    held = hold[:, rows].T  # (n_q_entries, S)
+    data[q_entry] = np.where(held, ident[:, None], data[q_entry])
+    f[:, pat.pvpq.size:][hold] = 0.0
+
+
+def _reactive_entries(pat: JacobianPattern):
+    """Entries of the reactive-mismatch rows: positions, their row among those rows, and 1.0
+    on the row's diagonal (d Q_i / d Vm_i), 0.0 elsewhere."""
+    npvpq = pat.pvpq.size
+    col = np.repeat(np.arange(pat.n), np.diff(pat.indptr))
+    q_entry = np.flatnonzero(pat.indices >= npvpq)
+    ident = (pat.indices[q_entry] == col[q_entry]).astype(float)
+    return q_entry, pat.indices[q_entry] - npvpq, ident
+
+
 def newton(pat: JacobianPattern, ybus: sp.csr_matrix, vm: np.ndarray, va: np.ndarray,
-           sbus: np.ndarray, tol: float, max_iter: int, linear: str = "stacked"):
+           sbus: np.ndarray, tol: float, max_iter: int, linear: str = "stacked",
+           hold: np.ndarray | None = None):
     """Solve the power flows of all samples.
 
     ``vm`` [p.u.], ``va`` [rad]: start values, shape (S, n_bus), fixed at PV (vm) and
     reference (vm, va) buses; ``sbus``: specified injections (S, n_bus) complex [p.u.].
+    ``hold`` (S, len(pat.pq)) bool, optional: per sample, the buses of ``pat.pq`` whose
+    voltage magnitude is held at its start value (PV buses of that sample, solved in the
+    pattern where every non-reference bus is PQ; see :func:`_hold_voltage`).
     Converged when ``max |mismatch| < tol`` [p.u.]. Returns ``(vm, va, iterations,
     status, max_mismatch)`` with status names from ``STATUSES``.
     """
@@ -143,6 +168,7 @@ def newton(pat: JacobianPattern, ybus: sp.csr_matrix, vm: np.ndarray, va: np.nda
     vm, va = np.array(vm, dtype=float), np.array(va, dtype=float)
     n_s = vm.shape[0]
     pvpq, pq, npvpq = pat.pvpq, pat.pq, pat.pvpq.size
+    hold_a = hold
     iterations = np.zeros(n_s, np.int64)
     code = np.full(n_s, _CODE[MAX_ITERATIONS])
     max_mis = np.zeros(n_s)
@@ -153,6 +179,8 @@ def newton(pat: JacobianPattern, ybus: sp.csr_matrix, vm: np.ndarray, va: np.nda
         for it in range(max_iter + 1):
             e = np.exp(1j * va_a)
             f, i_bus = _mismatch(ybus, vm_a, e, sbus_a, pvpq, pq)
+            if hold_a is not None:
+                f[:, npvpq:][hold_a] = 0.0
             norm = np.abs(f).max(axis=1, initial=0.0)
             finite = np.isfinite(norm) & np.isfinite(vm_a).all(axis=1) & np.isfinite(va_a).all(axis=1)
             max_mis[active] = np.where(finite, norm, np.inf)
@@ -163,15 +191,20 @@ def newton(pat: JacobianPattern, ybus: sp.csr_matrix, vm: np.ndarray, va: np.nda
             code[active[~finite]] = _CODE[DIVERGED]
             if it == max_iter or not keep.any():
                 break
-            vm_k = vm_a
+            vm_k, hold_k = vm_a, hold_a
             if not keep.all():
                 active, f, i_bus, e, vm_k = active[keep], f[keep], i_bus[keep], e[keep], vm_a[keep]
+                hold_k = None if hold_a is None else hold_a[keep]
             t = np.ascontiguousarray
             data = pat.values_by_entry(t(vm_k.T), t(e.T), t(i_bus.T))
+            if hold_k is not None:
+                _hold_voltage(pat, hold_k, data, f)
             dx, singular = solve(pat, data, f)
             if singular.any():
                 code[active[singular]] = _CODE[SINGULAR_JACOBIAN]
                 active, dx = active[~singular], dx[~singular]
+                if hold_k is not None:
+                    hold_k = hold_k[~singular]
                 if active.size == 0:
                     break
             if active.size == n_s:
@@ -183,5 +216,6 @@ def newton(pat: JacobianPattern, ybus: sp.csr_matrix, vm: np.ndarray, va: np.nda
                 va[rows, pvpq] -= dx[:, :npvpq]
                 vm[rows, pq] -= dx[:, npvpq:]
                 vm_a, va_a, sbus_a = vm[active], va[active], sbus[active]
+            hold_a = hold_k
     status = np.array(STATUS_NAMES)[code]
     return vm, va, iterations, status, max_mis

@@ -55,6 +55,8 @@ class BatchPowerFlowResult:
     ``iterations`` (n_samples,) int; ``max_mismatch_pu`` (n_samples,) [p.u.];
     ``vm_pu``, ``va_deg`` (n_samples, n_bus); ``pg_mw``, ``qg_mvar`` (n_samples, n_gen);
     ``pf_mw`` … ``st_mva`` (n_samples, n_branch); ``seconds``: wall time of the whole batch [s].
+    ``at_q_limit`` (n_samples, n_gen) int8 with reactive-limit enforcement, else None: +1 / -1
+    for a generator held at its maximum / minimum reactive output (its bus switched to PQ).
     """
 
     converged: np.ndarray
@@ -73,6 +75,7 @@ class BatchPowerFlowResult:
     sf_mva: np.ndarray
     st_mva: np.ndarray
     seconds: float
+    at_q_limit: np.ndarray | None = None
 
     @property
     def n_samples(self) -> int:

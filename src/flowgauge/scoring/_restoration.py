@@ -21,11 +21,14 @@ import numpy as np
 
 from ..errors import InputError
 from ..network import Network
+from ..powerflow._status import SWITCHING_UNSETTLED
 from ._metrics import (angle_difference_violation_deg, bound_violation, generator_cost_per_h, thermal_overload_mva,
                        thermal_overload_pct)
+from ._grading import element_excess, severity, tolerance_ratios
 from ._profile import ScoringProfile
 
-__all__ = ["CAUSES", "CHUNK_SAMPLES", "Restoration", "restore", "solve_restoration_chunk"]
+__all__ = ["CAUSES", "GRADED_CAUSES", "CHUNK_SAMPLES", "Restoration", "restore", "solve_restoration_chunk",
+           "causes_of"]
 
 CHUNK_SAMPLES = 64
 SCHEDULER_TIMEOUT_S = 10  # seconds to wait for a Dask scheduler to answer
@@ -39,6 +42,16 @@ CAUSES: dict[str, str] = {
     "active_power": "a generator's active output outside its limits beyond the active-power tolerance",
     "angle": "a branch angle difference outside its limits beyond the angle tolerance",
 }
+
+# Causes of profiles that enforce reactive limits: the table above plus one.
+GRADED_CAUSES: dict[str, str] = {
+    **CAUSES,
+    "switching": "buses still switched between PV and PQ after the last round of reactive-limit enforcement",
+}
+
+# Graded family -> cause it triggers
+_GRADED_CAUSE = {"voltage": "voltage", "reactive_power": "reactive", "thermal": "thermal",
+                 "active_power": "active_power", "angle": "angle"}
 
 # Restored violation family -> (cause it triggers, profile tolerance key)
 _FAMILY_CAUSE = {
@@ -75,6 +88,11 @@ class Restoration:
     violations: dict[str, np.ndarray]
     causes: dict[str, np.ndarray]
     failed: np.ndarray
+    # profiles with grading only (None otherwise): generators held at a reactive limit (S,),
+    # tolerance ratio per limit family (S,), severity (S,); see _grading
+    switched_generators: np.ndarray | None = None
+    ratios: dict[str, np.ndarray] | None = None
+    severity: np.ndarray | None = None
 
 
 def solve_restoration_chunk(net: Network, pd_mw, qd_mvar, pg_mw, vm_pu, powerflow: dict) -> dict[str, np.ndarray]:
@@ -82,10 +100,16 @@ def solve_restoration_chunk(net: Network, pd_mw, qd_mvar, pg_mw, vm_pu, powerflo
     worker). Arrays shape (n_chunk, n_x); returns the fields the scorer uses."""
     from ..powerflow import solve_powerflow_batch
 
+    enforce = bool(powerflow.get("enforce_q_limits", False))
+    extra = {"max_switch_rounds": powerflow["max_switch_rounds"]} if enforce else {}
     res = solve_powerflow_batch(net, pd_mw=pd_mw, qd_mvar=qd_mvar, pg_mw=pg_mw, vm_pu=vm_pu,
                                 init=powerflow["start"], tol=powerflow["tolerance_pu"],
-                                max_iter=powerflow["max_iterations"])
-    return {k: np.asarray(getattr(res, k)) for k in _FIELDS}
+                                max_iter=powerflow["max_iterations"], enforce_q_limits=enforce, **extra)
+    out = {k: np.asarray(getattr(res, k)) for k in _FIELDS}
+    if enforce:
+        out["at_q_limit"] = res.at_q_limit
+        out["unsettled"] = res.status == SWITCHING_UNSETTLED
+    return out
 
 
 def _chunks(n: int) -> list[slice]:
@@ -164,7 +188,18 @@ def restore(net: Network, *, pd_mw, qd_mvar, pg_mw, vm_pu, profile: ScoringProfi
     conv = got["converged"].astype(bool).reshape(n)
     state = {k: np.where(conv.reshape((n,) + (1,) * (got[k].ndim - 1)), got[k], np.nan)
              for k in ("vm_pu", "va_deg", "pg_mw", "qg_mvar", "sf_mva", "st_mva")}
-    return _judge(net, conv, got["iterations"].astype(np.int64).reshape(n), state, profile)
+    iterations = got["iterations"].astype(np.int64).reshape(n)
+    if profile.grading is None:
+        return _judge(net, conv, iterations, state, profile)
+    unsettled = np.concatenate([p["unsettled"] for p in parts]) if parts else np.zeros(0, bool)
+    at_limit = np.concatenate([p["at_q_limit"] for p in parts]) if parts else np.zeros((0, net.n_gen), np.int8)
+    return _judge_graded(net, conv, unsettled.reshape(n), iterations, state, at_limit.reshape(n, net.n_gen),
+                         profile)
+
+
+def causes_of(profile: ScoringProfile) -> dict[str, str]:
+    """The failure-cause table a profile reports."""
+    return GRADED_CAUSES if profile.grading is not None else CAUSES
 
 
 def _judge(net: Network, conv: np.ndarray, iterations: np.ndarray, state: dict, profile: ScoringProfile) -> Restoration:
@@ -199,3 +234,22 @@ def _judge(net: Network, conv: np.ndarray, iterations: np.ndarray, state: dict, 
         cost[conv] = generator_cost_per_h(ok["pg_mw"], cost_c2=net.cost_c2, cost_c1=net.cost_c1, cost_c0=net.cost_c0)
     return Restoration(converged=conv, iterations=iterations, cost_per_h=cost, violations=violations,
                        causes=causes, failed=failed, **state)
+
+
+def _judge_graded(net: Network, conv, unsettled, iterations, state: dict, at_limit, profile) -> Restoration:
+    """Profile with grading: the families of the strict judge as magnitudes, but violations
+    judged element by element against each element's own tolerance (``_grading``)."""
+    base = _judge(net, conv, iterations, state, profile)
+    n = conv.shape[0]
+    ok = {k: v[conv] for k, v in state.items()}
+    excess = element_excess(net, profile.tolerances, pg_mw=ok["pg_mw"], qg_mvar=ok["qg_mvar"], vm_pu=ok["vm_pu"],
+                            sf_mva=ok["sf_mva"], st_mva=ok["st_mva"], va_deg=ok["va_deg"])
+    ratios = tolerance_ratios(excess, n, np.flatnonzero(conv))
+    causes = {"diverged": ~conv & ~unsettled, "switching": unsettled}
+    for fam, cause in _GRADED_CAUSE.items():
+        causes[cause] = conv & (np.nan_to_num(ratios[fam], nan=0.0) > 1.0)
+    causes = {c: causes[c] for c in GRADED_CAUSES}
+    failed = np.logical_or.reduce(list(causes.values()))
+    return Restoration(converged=conv, iterations=iterations, cost_per_h=base.cost_per_h, violations=base.violations,
+                       causes=causes, failed=failed, switched_generators=(at_limit != 0).sum(axis=1),
+                       ratios=ratios, severity=severity(excess, conv), **state)

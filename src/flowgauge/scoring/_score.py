@@ -17,8 +17,9 @@ from ._metrics import (active_balance_residual_mw, angle_difference_violation_de
                        bound_violation, branch_flows_mva, generator_cost_per_h, optimality_gap_pct,
                        thermal_overload_mva, thermal_overload_pct)
 from ._profile import ScoringProfile, get_profile
-from ._restoration import CAUSES, restore
-from ._scorecard import FORMAT_NAME, FORMAT_VERSION, Scorecard
+from ._grading import element_excess, failure_at_multiples, solved_shares, tolerance_ratios
+from ._restoration import causes_of, restore
+from ._scorecard import FORMAT_NAME, FORMAT_VERSION, GRADED_FORMAT_VERSION, Scorecard
 
 __all__ = ["score", "score_arrays", "RAW_FAMILIES", "RESTORED_FAMILIES", "FAMILY_TOLERANCE"]
 
@@ -41,6 +42,11 @@ FAMILY_TOLERANCE = {
 }
 RAW_FAMILIES = tuple(k for k in FAMILY_TOLERANCE if k.startswith("raw_"))
 RESTORED_FAMILIES = tuple(k for k in FAMILY_TOLERANCE if k.startswith("restored_"))
+# Violation family -> graded family judging it element by element (profiles with grading)
+_GRADED_FAMILY = {
+    "active_power_mw": "active_power", "reactive_power_mvar": "reactive_power", "voltage_pu": "voltage",
+    "thermal_mva": "thermal", "thermal_pct": "thermal", "angle_deg": "angle",
+}
 
 
 def _resolve(predictions, split):
@@ -91,12 +97,28 @@ def _raw_metrics(net: Network, pd_mw, qd_mvar, pg, vm, va, qg) -> dict[str, np.n
     return fam
 
 
-def _violating(fams: dict[str, np.ndarray], tol: dict[str, float]) -> dict[str, np.ndarray]:
+def _violating(fams: dict[str, np.ndarray], tol: dict[str, float], ratios: dict | None = None) -> dict[str, np.ndarray]:
+    """Per family, samples beyond tolerance. ``ratios`` ({"raw": ..., "restored": ...} tolerance
+    ratios by graded family): judge those families element by element instead."""
     out = {}
     for k, v in fams.items():
+        stage, _, rest = k.partition("_")
+        if ratios is not None and rest in _GRADED_FAMILY:
+            out[k] = np.nan_to_num(ratios[stage][_GRADED_FAMILY[rest]], nan=0.0) > 1.0
+            continue
         judge = fams[k.replace("_mva", "_pct")] if k.endswith("_thermal_mva") else v
         out[k] = np.nan_to_num(judge, nan=0.0) > tol[FAMILY_TOLERANCE[k]]
     return out
+
+
+def _raw_ratios(net: Network, tol, pg, vm, va, qg) -> dict[str, np.ndarray]:
+    full = va is not None and qg is not None
+    sf = st = None
+    if full:
+        sf, st = branch_flows_mva(net, vm_pu=vm, va_deg=va)
+    excess = element_excess(net, tol, pg_mw=pg, qg_mvar=qg, vm_pu=vm, sf_mva=sf, st_mva=st,
+                            va_deg=va if full else None)
+    return tolerance_ratios(excess, pg.shape[0])
 
 
 def _reference_ms(split) -> float | None:
@@ -125,7 +147,7 @@ def _aggregates(table: pd.DataFrame, fams: dict, viol: dict, restoration, ref_ms
     return {
         "samples": n,
         "restoration_failure_rate": float(restoration.failed.mean()) if n else None,
-        "restoration_failure_causes": {c: float(restoration.causes[c].mean()) for c in CAUSES},
+        "restoration_failure_causes": {c: float(restoration.causes[c].mean()) for c in causes_of(profile)},
         "raw_gap_pct": summary_stats(table["raw_gap_pct"].to_numpy()),
         "restored_gap_pct": summary_stats(table["restored_gap_pct"].to_numpy()),
         "violations": {k: violation_stats(fams[k], viol[k]) for k in FAMILY_TOLERANCE},
@@ -136,11 +158,40 @@ def _aggregates(table: pd.DataFrame, fams: dict, viol: dict, restoration, ref_ms
     }
 
 
+def _graded_aggregates(table: pd.DataFrame, restoration, profile) -> dict:
+    """Aggregates of profiles with grading: severity, switched generators, the tolerance curve,
+    the solved share and its curve, and their bootstrap intervals."""
+    g = profile.grading
+    n = len(table)
+    multiples = list(g["tolerance_multiples"])
+    thresholds = list(g["solved_thresholds_pct"])
+    fails = failure_at_multiples(restoration.ratios, restoration.causes["diverged"] | restoration.causes["switching"],
+                                 multiples)
+    gap = table["restored_gap_pct"].to_numpy()
+    shares = solved_shares(restoration.failed, gap, thresholds)
+    boot = profile.bootstrap
+    ci = bootstrap_ci({"severity_mean": restoration.severity, "solved_share": table["solved"].to_numpy(float)},
+                      resamples=int(boot["resamples"]), seed=int(boot["seed"]), level=float(boot["level"]))
+    switched = summary_stats(restoration.switched_generators.astype(float))
+    return {
+        "severity": None if n == 0 else {k: float(v) for k, v in (
+            ("mean", restoration.severity.mean()), ("p95", np.percentile(restoration.severity, 95)),
+            ("max", restoration.severity.max()))},
+        "switched_generators": None if switched is None else {"mean": switched["mean"], "max": switched["max"]},
+        "tolerance_curve": {"multiples": multiples,
+                            "failure_rate": [float(x) for x in fails.mean(axis=1)] if n else None},
+        "solved_share": float(table["solved"].mean()) if n else None,
+        "solved_threshold_pct": float(g["solved_threshold_pct"]),
+        "solved_curve": {"thresholds_pct": thresholds, "share": [float(x) for x in shares] if n else None},
+        "ci95_graded": ci,
+    }
+
+
 def _header(split, preds, profile: ScoringProfile) -> dict[str, Any]:
     model = preds.header.get("model") if isinstance(preds.header, dict) else None
     return {
         "format": FORMAT_NAME,
-        "format_version": FORMAT_VERSION,
+        "format_version": FORMAT_VERSION if profile.grading is None else GRADED_FORMAT_VERSION,
         "flowgauge_version": __version__,
         "split": {"network": split.network_name, "split": split.name, "split_hash": split.split_hash},
         "predictions_hash": preds.content_hash,
@@ -180,7 +231,10 @@ def score_arrays(net: Network, *, sample_id, pd_mw, qd_mvar, reference_cost_per_
     rest = restore(net, pd_mw=pd_mw, qd_mvar=qd_mvar, pg_mw=pg, vm_pu=vm, profile=prof, workers=int(workers),
                    scheduler=scheduler, progress=progress)
     fams.update(rest.violations)
-    viol = _violating(fams, dict(prof.tolerances))
+    ratios = None
+    if prof.grading is not None:
+        ratios = {"raw": _raw_ratios(net, prof.tolerances, pg, vm, va, qg), "restored": rest.ratios}
+    viol = _violating(fams, dict(prof.tolerances), ratios)
     restored_gap = np.full(sid.size, np.nan)
     conv = rest.converged
     if conv.any():
@@ -194,13 +248,22 @@ def score_arrays(net: Network, *, sample_id, pd_mw, qd_mvar, reference_cost_per_
         "restoration_converged": conv,
         "restoration_iterations": rest.iterations,
         "restoration_failed": rest.failed,
-        **{f"cause_{c}": rest.causes[c] for c in CAUSES},
+        **{f"cause_{c}": rest.causes[c] for c in causes_of(prof)},
         "restored_cost_per_h": rest.cost_per_h,
         "restored_gap_pct": restored_gap,
         **{k: fams[k] for k in RESTORED_FAMILIES},
         "inference_ms": inference if inference is not None else np.full(sid.size, np.nan),
     })
-    return _aggregates(table, fams, viol, rest, reference_solve_ms, prof), table
+    aggregates = _aggregates(table, fams, viol, rest, reference_solve_ms, prof)
+    if prof.grading is not None:
+        worst = np.nanmax(np.stack(list(rest.ratios.values())), axis=0, initial=0.0)
+        table["switched_generators"] = rest.switched_generators
+        table["tolerance_ratio"] = np.where(conv, worst, np.nan)
+        table["severity"] = rest.severity
+        limit = float(prof.grading["solved_threshold_pct"])
+        table["solved"] = ~rest.failed & (np.abs(np.nan_to_num(restored_gap, nan=np.inf)) <= limit)
+        aggregates.update(_graded_aggregates(table, rest, prof))
+    return aggregates, table
 
 
 def score(predictions, split=None, *, profile: str | ScoringProfile | None = None, workers: int = 1,

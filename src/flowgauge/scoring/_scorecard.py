@@ -14,14 +14,19 @@ import pandas as pd
 from .._io import atomic_write_bytes, canonical_json, sha256_hex
 from ..errors import InputError, IntegrityError
 
-__all__ = ["FORMAT_NAME", "FORMAT_VERSION", "PER_SAMPLE_JSON_FIELDS", "Scorecard", "read_scorecard",
-           "scorecard_hash"]
+__all__ = ["FORMAT_NAME", "FORMAT_VERSION", "GRADED_FORMAT_VERSION", "FORMAT_VERSIONS", "PER_SAMPLE_JSON_FIELDS",
+           "GRADED_PER_SAMPLE_JSON_FIELDS", "Scorecard", "read_scorecard", "scorecard_hash"]
 
 FORMAT_NAME = "flowgauge-scorecard"
 FORMAT_VERSION = 1
+# Written by profiles with grading: version 1 plus severity, the tolerance curve and the solved
+# share (docs/metrics.md).
+GRADED_FORMAT_VERSION = 2
+FORMAT_VERSIONS = (FORMAT_VERSION, GRADED_FORMAT_VERSION)
 # Per-sample columns carried in the JSON scorecard (the ranking's paired bootstrap uses them);
 # the full per-sample table goes to Parquet with ``--per-sample``.
 PER_SAMPLE_JSON_FIELDS = ("sample_id", "restoration_failed", "restored_gap_pct", "raw_gap_pct")
+GRADED_PER_SAMPLE_JSON_FIELDS = PER_SAMPLE_JSON_FIELDS + ("solved", "severity")
 
 
 def scorecard_hash(doc: dict[str, Any]) -> str:
@@ -53,8 +58,10 @@ class Scorecard:
 
     def to_dict(self) -> dict[str, Any]:
         """The scorecard document, with its ``scorecard_hash``."""
+        fields = PER_SAMPLE_JSON_FIELDS if self.header.get("format_version") == FORMAT_VERSION \
+            else GRADED_PER_SAMPLE_JSON_FIELDS
         doc = {**self.header, "aggregates": self.aggregates,
-               "per_sample": {k: _json_column(self.per_sample[k]) for k in PER_SAMPLE_JSON_FIELDS}}
+               "per_sample": {k: _json_column(self.per_sample[k]) for k in fields}}
         # Round-trip through canonical JSON so the hash covers exactly what is written.
         doc = json.loads(canonical_json(doc))
         doc["scorecard_hash"] = scorecard_hash(doc)
@@ -104,9 +111,9 @@ def read_scorecard(path: str | Path) -> dict[str, Any]:
         raise InputError(f"not JSON ({exc}); expected a flowgauge scorecard", where=str(path)) from exc
     if not isinstance(doc, dict) or doc.get("format") != FORMAT_NAME:
         raise InputError(f"not a scorecard: expected \"format\": \"{FORMAT_NAME}\"", where=f"{path}#/format")
-    if doc.get("format_version") != FORMAT_VERSION:
+    if doc.get("format_version") not in FORMAT_VERSIONS or isinstance(doc.get("format_version"), bool):
         raise InputError(f"unknown scorecard format_version {doc.get('format_version')!r}; this flowgauge "
-                         f"reads version {FORMAT_VERSION}", where=f"{path}#/format_version")
+                         f"reads versions {', '.join(map(str, FORMAT_VERSIONS))}", where=f"{path}#/format_version")
     recorded = doc.get("scorecard_hash")
     if not isinstance(recorded, str):
         raise InputError("missing the scorecard_hash field", where=f"{path}#/scorecard_hash")
