@@ -84,7 +84,9 @@ class _LazyProgress:
               help="Local processes for the restoration power flows.")
 @click.option("--scheduler", default=None, metavar="ADDRESS",
               help="Dask scheduler address to spread the restoration power flows over.")
-@click.option("--profile", default="default", show_default=True, help="Scoring profile name.")
+@click.option("--profile", default="reactive-limits", show_default=True,
+              help="Scoring profile: reactive-limits (restoration enforces reactive limits) or strict "
+                   "(every PV bus held at its setpoint); docs/metrics.md.")
 def score(file: Path, split_path, out, per_sample, workers: int, scheduler, profile: str) -> None:
     """Validate and score a predictions FILE; write a canonical JSON scorecard."""
     from ..scoring import score as score_predictions
