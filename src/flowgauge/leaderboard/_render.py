@@ -13,6 +13,7 @@ import re
 from pathlib import Path
 
 import jinja2
+from markupsafe import Markup, escape
 
 from .. import __version__
 from .._io import round_sig, sha256_hex
@@ -20,6 +21,7 @@ from ..errors import IntegrityError
 from ._plots import split_bars_svg, tradeoff_svg
 from ._ranking import RankTable, metric_value
 from ._rules import METRICS, Rules
+from ._text import NAME_CAP, TEXT_CAP, clean, csv_text, md, md_code, safe_link, tex
 
 __all__ = ["OUTPUTS", "CAUTION", "render_outputs", "seal", "check_seal"]
 
@@ -58,14 +60,34 @@ def check_seal(data: bytes, name: str) -> str:
     return recorded
 
 
-def _env() -> jinja2.Environment:
+def _finalize(value):
+    """Every ``{{ ... }}`` output: a string loses its control characters (markup made here,
+    such as the plots, passes as it is)."""
+    if isinstance(value, str) and not isinstance(value, Markup):
+        return clean(value, 10**9)
+    return value
+
+
+def _env(*, html: bool) -> jinja2.Environment:
+    """The template environment. The page is HTML-escaped by Jinja2 (``autoescape=True``, set
+    explicitly: ``select_autoescape`` goes by the file name and misses ``page.html.j2``); the
+    Markdown and LaTeX templates escape each value with the filter of their own syntax."""
     env = jinja2.Environment(
         loader=jinja2.PackageLoader("flowgauge.leaderboard", "templates"),
-        autoescape=jinja2.select_autoescape(["html"]), trim_blocks=True, lstrip_blocks=True,
+        autoescape=html, finalize=_finalize, trim_blocks=True, lstrip_blocks=True,
         keep_trailing_newline=True, undefined=jinja2.StrictUndefined)
-    env.filters["tex"] = _tex_escape
-    env.filters["md"] = _md_escape
+    env.filters["tex"] = tex
+    env.filters["md"] = md
+    env.filters["md_code"] = md_code
+    env.filters["path_breaks"] = _path_breaks
+    env.filters["slug"] = _plain_slug
     return env
+
+
+def _path_breaks(value) -> Markup:
+    """A file path for the page, HTML-escaped, with a line-break opportunity after each ``/``
+    (a narrow column then breaks a path between folders, never inside a name)."""
+    return Markup("/<wbr>").join(escape(part) for part in clean(value, NAME_CAP).split("/"))
 
 
 def _fmt(v: float | None, digits: int) -> str:
@@ -91,47 +113,60 @@ def _ci_text(ci, digits: int) -> str:
     return "" if ci is None else f"[{_fmt(ci[0], digits)}, {_fmt(ci[1], digits)}]"
 
 
-def _table_view(t: RankTable, rules: Rules, entries: dict) -> dict:
+def _table_view(t: RankTable, rules: Rules, entries: dict, ids: dict, table_id: str) -> dict:
     digits = [_DIGITS[k.metric] for k in rules.keys]
     rows = []
     for s in t.standings:
         cards = [entries[s.entry][sp].card for sp in t.splits]
         rows.append({
-            "rank": s.rank, "entry": s.entry, "tied": s.tied,
+            "rank": s.rank, "entry": clean(s.entry), "tied": s.tied, "target": ids[s.entry],
             "cells": [_fmt(v, d) for v, d in zip(s.values, digits)],
             "raw": [_num(v) for v in s.values],
             "per_split_rfr": [_fmt(metric_value(c, "restoration_failure_rate"), 4) for c in cards],
             "ci": _ci_text(s.diff_ci, digits[0]),
             "ci_raw": ("", "") if s.diff_ci is None else tuple(_num(x) for x in s.diff_ci),
-            "submissions": [entries[s.entry][sp].where for sp in t.splits],
         })
     return {"network": t.network, "scope": t.scope, "splits": list(t.splits), "rows": rows,
-            "unranked": [f"{e} ({why})" for e, why in t.unranked],
-            "id": f"{t.network}-{t.scope}"}
+            "unranked": [f"{clean(e)} ({clean(why, 1000)})" for e, why in t.unranked],
+            "id": table_id}
 
 
 def _context(*, board, rules, records, tables, entries, splits_used, notes, with_plots: bool):
     keys = [{"metric": k.metric, "direction": k.direction, "label": METRICS[k.metric].label}
             for k in rules.keys]
+    names = list(dict.fromkeys(t.network for t in tables))
+    net_ids = _unique_slugs(names, "network")
+    table_ids = _unique_slugs([(t.network, t.scope) for t in tables], "table")
+    entry_ids = _unique_slugs([(n, e) for n in names for e in sorted(entries[n])], "entry")
     networks = []
-    for network in dict.fromkeys(t.network for t in tables):
-        ts = [_table_view(t, rules, entries[network]) for t in tables if t.network == network]
-        net = {"name": network, "tables": ts,
-               "details": _details(network, entries[network], rules, records)}
-        if with_plots:
+    for network in names:
+        ids = {e: entry_ids[(network, e)] for e in entries[network]}
+        net = {"name": clean(network), "id": net_ids[network],
+               "tables": [_table_view(t, rules, entries[network], ids,
+                                      table_ids[(t.network, t.scope)])
+                          for t in tables if t.network == network],
+               "details": _details(network, entries[network], rules, records, ids)}
+        if with_plots:  # matplotlib's SVG: text escaped by its XML writer, ids prefixed per plot
             overall = next(t for t in tables if t.network == network and t.scope == "all")
-            net["tradeoff_svg"] = tradeoff_svg(network, entries[network], rules.splits,
-                                               [s.entry for s in overall.standings])
-            net["bars_svg"] = split_bars_svg(network, entries[network], rules.splits)
+            net["tradeoff_svg"] = Markup(tradeoff_svg(
+                network, entries[network], rules.splits, [s.entry for s in overall.standings],
+                id_prefix=f"{net_ids[network]}-tradeoff"))
+            net["bars_svg"] = Markup(split_bars_svg(
+                network, entries[network], rules.splits, id_prefix=f"{net_ids[network]}-bars"))
         networks.append(net)
+    shown = [{**r, "submission": clean(r["submission"]), "entry": clean(r["entry"]),
+              "network": clean(r["network"]), "split": clean(r["split"]),
+              "scorecard": clean(r["scorecard"])} for r in records]
     return {
         "version": __version__, "rules": rules, "rules_sha256": rules.sha256, "keys": keys,
-        "level_pct": f"{rules.level * 100:g}", "networks": networks, "records": records,
-        "splits_used": splits_used, "notes": notes, "caution": CAUTION,
+        "level_pct": f"{rules.level * 100:g}", "networks": networks, "records": shown,
+        "splits_used": splits_used, "notes": [clean(n, 2000) for n in notes],
+        "caution": CAUTION,
     }
 
 
-def _details(network: str, entries: dict, rules: Rules, records: list[dict]) -> list[dict]:
+def _details(network: str, entries: dict, rules: Rules, records: list[dict],
+             ids: dict) -> list[dict]:
     out = []
     for name in sorted(entries):
         per_split = []
@@ -148,15 +183,15 @@ def _details(network: str, entries: dict, rules: Rules, records: list[dict]) -> 
                 "restored_ci": _ci_text((a.get("ci95") or {}).get("restored_gap_pct_mean"), 3),
                 "raw": {k: _fmt((a.get("raw_gap_pct") or {}).get(k), 3)
                         for k in ("mean", "median", "p95", "max")},
-                "causes": [(c, _fmt(v, 4)) for c, v in sorted(
+                "causes": [(clean(c), _fmt(v, 4)) for c, v in sorted(
                     (a.get("restoration_failure_causes") or {}).items())],
-                "violations": [(f, _fmt(v.get("share"), 4), _fmt(v.get("mean"), 4),
+                "violations": [(clean(f), _fmt(v.get("share"), 4), _fmt(v.get("mean"), 4),
                                 _fmt(v.get("max"), 4))
                                for f, v in sorted((a.get("violations") or {}).items())
                                if v is not None],
                 "inference_ms": {k: _fmt(v, 3) for k, v in (a.get("inference_ms") or {}).items()},
                 "speedup": _fmt(a.get("speedup_indicative"), 1) or None,
-                "record": rec,
+                "record": {**rec, "scorecard": clean(rec["scorecard"])},
             })
         families = sorted({f for s in per_split for f, *_ in s["violations"]})
         violation_rows = [
@@ -164,56 +199,62 @@ def _details(network: str, entries: dict, rules: Rules, records: list[dict]) -> 
                  for s in per_split])
             for f in families]
         model = entries[name][next(iter(entries[name]))].card.get("model") or {}
-        link = model.get("link") or ""
-        out.append({"name": name, "id": _slug(f"{network}-{name}"), "model": model,
+        out.append({"name": clean(name), "id": ids[name],
+                    "description": clean(model.get("description"), TEXT_CAP),
                     "authors": _authors(model.get("authors")),
-                    "link": link if re.match(r"https?://", str(link)) else "",
+                    "link": safe_link(model.get("link")),
                     "splits": per_split, "violation_rows": violation_rows})
     return out
 
 
 def _authors(value) -> str:
     if isinstance(value, list):
-        return ", ".join(str(v) for v in value)
-    return "" if value is None else str(value)
+        return clean(", ".join(clean(v) for v in value), 1000)
+    return clean(value)
 
 
-def _slug(text: str) -> str:
-    return "entry-" + re.sub(r"[^A-Za-z0-9_-]+", "-", text).strip("-")
+def _plain_slug(text: str) -> str:
+    return re.sub(r"[^A-Za-z0-9_-]+", "-", clean(text)).strip("-")
 
 
-def _tex_escape(text) -> str:
-    repl = {"\\": r"\textbackslash{}", "&": r"\&", "%": r"\%", "$": r"\$", "#": r"\#",
-            "_": r"\_", "{": r"\{", "}": r"\}", "~": r"\textasciitilde{}",
-            "^": r"\textasciicircum{}", "|": r"\textbar{}", "<": r"\textless{}",
-            ">": r"\textgreater{}"}
-    return "".join(repl.get(c, c) for c in str(text))
+def _unique_slugs(names: list, prefix: str) -> dict:
+    """An element id per name (a string, or a tuple of strings joined by ``-``): ``prefix-``
+    and the name's letters, digits, ``-`` and ``_``; where two names would share an id (or a
+    name has none of those), the first 8 hex digits of the name's SHA-256 follow, so that
+    every id on the page is distinct and reproducible."""
+    text = {n: "-".join(n) if isinstance(n, tuple) else n for n in names}
+    base = {n: "-".join(p for p in (prefix, _plain_slug(text[n])) if p) for n in names}
+    counts: dict[str, int] = {}
+    for b in base.values():
+        counts[b] = counts.get(b, 0) + 1
+    digest = lambda n: sha256_hex(text[n].encode("utf-8", "surrogatepass"))[:8]  # noqa: E731
+    return {n: b if counts[b] == 1 and b != prefix else f"{b}-{digest(n)}"
+            for n, b in base.items()}
 
 
-def _md_escape(text) -> str:
-    return re.sub(r"([\\`*_\[\]|<>])", r"\\\1", str(text))
-
-
-def _csv(ctx: dict, tables: tuple[RankTable, ...], entries: dict) -> str:
+def _csv(ctx: dict, tables: tuple[RankTable, ...], entries: dict, records: list[dict]) -> str:
+    """Every field is quoted, so that a ``#`` inside a name is not read as the start of a
+    comment (pandas ``comment="#"``); text cells are one line and cannot start a formula."""
     buf = io.StringIO()
-    w = csv.writer(buf, lineterminator="\n")
+    w = csv.writer(buf, lineterminator="\n", quoting=csv.QUOTE_ALL)
     w.writerow(["network", "scope", "splits", "rank", "entry", "tied_with_above",
                 *[k["metric"] for k in ctx["keys"]], "diff_to_above_ci_low",
                 "diff_to_above_ci_high", "submissions", "predictions_sha256",
                 "scorecards", "scorecard_sha256", "split_sha256", "rules_sha256",
                 "flowgauge_version"])
-    by_card = {r["scorecard"]: r for r in ctx["records"]}
+    by_card = {r["scorecard"]: r for r in records}
     for t in tables:
         for s in t.standings:
             recs = [by_card[entries[t.network][s.entry][sp].where] for sp in t.splits]
             ci = ("", "") if s.diff_ci is None else (_num(s.diff_ci[0]), _num(s.diff_ci[1]))
-            w.writerow([t.network, t.scope, " ".join(t.splits), s.rank, s.entry,
+            w.writerow([csv_text(t.network), csv_text(t.scope),
+                        csv_text(" ".join(t.splits), 1000), s.rank, csv_text(s.entry),
                         int(s.tied), *[_num(v) for v in s.values], *ci,
-                        " ".join(r["submission"] for r in recs),
-                        " ".join(r["predictions_hash"] for r in recs),
-                        " ".join(r["scorecard"] for r in recs),
-                        " ".join(r["scorecard_hash"] for r in recs),
-                        " ".join(r["split_hash"] for r in recs),
+                        csv_text(" ".join(clean(r["submission"]) for r in recs), 10**6),
+                        clean(" ".join(r["predictions_hash"] for r in recs), 10**6),
+                        csv_text(" ".join(clean(r["scorecard"]) for r in recs), 10**6),
+                        clean(" ".join(r["scorecard_hash"] for r in recs), 10**6),
+                        clean(" ".join(r["split_hash"] for r in recs), 10**6),
                         ctx["rules_sha256"], ctx["version"]])
     return buf.getvalue()
 
@@ -221,15 +262,15 @@ def _csv(ctx: dict, tables: tuple[RankTable, ...], entries: dict) -> str:
 def render_outputs(*, board: Path, rules: Rules, records, tables, entries, splits_used,
                    notes) -> dict[str, bytes]:
     """Table file name -> bytes (sealed), in a fixed order; nothing is written here."""
-    env = _env()
+    text_env, html_env = _env(html=False), _env(html=True)
     kw = dict(board=board, rules=rules, records=records, tables=tables, entries=entries,
               splits_used=splits_used, notes=notes)
     ctx = _context(**kw, with_plots=False)
     out = {
-        "ranking.md": seal(env.get_template("ranking.md.j2").render(ctx), "ranking.md"),
-        "ranking.csv": seal(_csv(ctx, tables, entries), "ranking.csv"),
-        "ranking.tex": seal(env.get_template("ranking.tex.j2").render(ctx), "ranking.tex"),
+        "ranking.md": seal(text_env.get_template("ranking.md.j2").render(ctx), "ranking.md"),
+        "ranking.csv": seal(_csv(ctx, tables, entries, records), "ranking.csv"),
+        "ranking.tex": seal(text_env.get_template("ranking.tex.j2").render(ctx), "ranking.tex"),
     }
     page_ctx = _context(**kw, with_plots=True)
-    out["index.html"] = seal(env.get_template("page.html.j2").render(page_ctx), "index.html")
+    out["index.html"] = seal(html_env.get_template("page.html.j2").render(page_ctx), "index.html")
     return out
