@@ -10,8 +10,10 @@ from pathlib import Path
 
 from .. import __version__
 from ..errors import InputError, IntegrityError
+from ._files import inside, read_small_file
 from ._ranking import Scored
 from ._rules import Rules
+from ._text import clean
 
 __all__ = ["Submission", "collect_submissions", "SUBMISSIONS_DIR", "SCORECARDS_DIR",
            "EXTERNAL_FILE", "PREDICTION_SUFFIXES", "scorecard_is_stale", "split_record",
@@ -47,20 +49,25 @@ def collect_submissions(board: Path) -> list[Submission]:
     if not root.is_dir():
         raise InputError("no submissions/ folder here; expected a leaderboard folder",
                          where=str(board))
+    inside(board, root, where=SUBMISSIONS_DIR)
     subs = []
     for path in sorted(root.rglob("*")):
-        if path.is_file() and path.suffix in PREDICTION_SUFFIXES and not path.name.startswith("."):
+        if path.suffix in PREDICTION_SUFFIXES and not path.name.startswith(".") and (
+                path.is_file() or path.is_symlink()):
             rel = path.relative_to(root)
+            shown = (Path(SUBMISSIONS_DIR) / rel).as_posix()
+            inside(board, path, where=shown)  # a link to a file elsewhere is not ranked
             subs.append(Submission(
-                shown_path=(Path(SUBMISSIONS_DIR) / rel).as_posix(), file=path,
+                shown_path=shown, file=path,
                 scorecard=board / SCORECARDS_DIR / rel.with_suffix(".json")))
     subs += _external(board, root / EXTERNAL_FILE)
     names = [s.scorecard for s in subs]
     for s in subs:
+        card_rel = s.scorecard.relative_to(board).as_posix()
         if names.count(s.scorecard) > 1:
-            raise InputError("two submissions would share the scorecard "
-                             f"{s.scorecard.relative_to(board).as_posix()}; rename one",
+            raise InputError(f"two submissions would share the scorecard {card_rel}; rename one",
                              where=s.shown_path)
+        inside(board, s.scorecard, where=card_rel)  # read from, and written to, the board only
     return subs
 
 
@@ -71,25 +78,32 @@ def _external(board: Path, listing: Path) -> list[Submission]:
         path = "/data/entries/ieee300-test-id.parquet"   # absolute, or relative to the board
         predictions_hash = "<64 hex digits>"
     """
-    if not listing.exists():
+    if not (listing.exists() or listing.is_symlink()):
         return []
     where = listing.relative_to(board).as_posix()
+    inside(board, listing, where=where)
+    data = read_small_file(listing, where=where, expected="a TOML listing of submissions",
+                           missing="no such file")
     try:
-        doc = tomllib.loads(listing.read_text(encoding="utf-8"))
+        doc = tomllib.loads(data.decode("utf-8"))
     except (tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
-        raise InputError(f"not valid TOML: {exc}", where=where) from None
+        raise InputError(f"not valid TOML: {clean(exc, 300)}", where=where) from None
     items = doc.get("submission", [])
     if not isinstance(items, list) or set(doc) - {"submission"}:
         raise InputError("expected only [[submission]] tables", where=where)
     out = []
     for i, item in enumerate(items):
         at = f"{where}: submission[{i}]"
+        if not isinstance(item, dict):
+            raise InputError("expected a [[submission]] table", where=at)
         path, digest = item.get("path"), item.get("predictions_hash")
         if not isinstance(path, str) or Path(path).suffix not in PREDICTION_SUFFIXES:
             raise InputError(f"path must name a {' or '.join(PREDICTION_SUFFIXES)} file", where=at)
         if not (isinstance(digest, str) and len(digest) == 64
                 and all(c in "0123456789abcdef" for c in digest)):
             raise InputError("predictions_hash must be 64 lowercase hex digits", where=at)
+        if clean(path, 4096) != path or "\x00" in path:
+            raise InputError("path must be one line of printable characters", where=at)
         file = Path(path) if Path(path).is_absolute() else board / path
         out.append(Submission(
             shown_path=path, file=file if file.exists() else None,

@@ -2,17 +2,20 @@
 
 from __future__ import annotations
 
+import json
+from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
 
 from .. import __version__
-from .._io import atomic_write_bytes
 from ..errors import InputError, IntegrityError
 from ._board import (Submission, check_commitments, collect_submissions, read_header, scored,
                      scorecard_is_stale, split_record)
+from ._files import read_small_file, write_set
 from ._ranking import RankTable, Scored, rank_table
 from ._render import OUTPUTS, check_seal, render_outputs
 from ._rules import Rules, load_rules
+from ._text import clean
 
 __all__ = ["BoardReport", "build_board", "RULES_FILE"]
 
@@ -38,13 +41,16 @@ class BoardReport:
     verified: bool
 
 
-def build_board(board: str | Path, *, verify: bool = False, workers: int = 1) -> BoardReport:
+def build_board(board: str | Path, *, verify: bool = False, workers: int = 1,
+                progress: Callable[[str, int, int], None] | None = None) -> BoardReport:
     """Regenerate everything in a leaderboard folder from its raw files, or verify it.
 
-    Rebuild: rescore each submission whose scorecard is missing or stale, rank, and write
-    ``ranking.md``, ``ranking.csv``, ``ranking.tex`` and ``index.html`` atomically.
-    Verify (``verify=True``): write nothing; rescore every submission and raise
-    :class:`IntegrityError` naming the first recorded hash or table whose bytes differ.
+    Rebuild: rescore each submission whose scorecard is missing or stale, rank, and write the
+    new scorecards, ``ranking.md``, ``ranking.csv``, ``ranking.tex`` and ``index.html`` as one
+    set (all of them, or, on any failure, none). Verify (``verify=True``): write nothing;
+    rescore every submission and raise :class:`IntegrityError` naming the first recorded hash
+    or table whose bytes differ. ``progress(step, done, total)`` is called before each
+    submission is read (and rescored) and each split verified.
     """
     board = Path(board)
     rules = load_rules(board / RULES_FILE)
@@ -53,16 +59,21 @@ def build_board(board: str | Path, *, verify: bool = False, workers: int = 1) ->
     if not subs:
         raise InputError("no prediction files under submissions/ and no external.toml listing",
                          where=str(board / "submissions"))
-    cards, rescored = {}, []
-    for sub in subs:
-        sub, card, did = _scorecard(board, sub, rules, profile_hash, verify, workers)
+    say = progress or (lambda step, done, total: None)
+    cards, rescored, pending = {}, [], {}
+    for i, sub in enumerate(subs):
+        say(clean(sub.shown_path, 60), i, len(subs))
+        sub, card, data = _scorecard(board, sub, rules, profile_hash, verify, workers)
         cards[sub.shown_path] = (sub, card)
-        if did:
+        if data is not None:
+            pending[sub.scorecard] = data
             rescored.append(sub.scorecard.relative_to(board).as_posix())
+    say("ranking", len(subs), len(subs))
     entries, records, notes, splits_used = _group(board, rules, cards)
     if verify:
         from ..splits import verify_split
-        for split in splits_used:  # recompute every hash the split's manifest records
+        for i, split in enumerate(splits_used):  # recompute every hash the manifest records
+            say(f"split {split['network']}/{split['split']}", i, len(splits_used))
             verify_split(split["folder"])
     notes = check_commitments(board, rules, splits_used) + notes + _orphans(board, subs)
     notes += [f"rules.toml names network {n}, which has no counted submission"
@@ -71,14 +82,12 @@ def build_board(board: str | Path, *, verify: bool = False, workers: int = 1) ->
                    for t in _network_tables(network, entries[network], rules))
     outputs = render_outputs(board=board, rules=rules, records=records, tables=tables,
                              entries=entries, splits_used=splits_used, notes=notes)
-    digests = {}
-    for name, data in outputs.items():
-        path = board / name
-        if verify:
-            _verify_output(path, name, data)
-        else:
-            atomic_write_bytes(path, data)
-        digests[name] = check_seal(data, name)
+    digests = {name: check_seal(data, name) for name, data in outputs.items()}
+    if verify:
+        for name, data in outputs.items():
+            _verify_output(board / name, name, data)
+    else:
+        write_set(board, {**pending, **{board / name: data for name, data in outputs.items()}})
     return BoardReport(board, rules, tuple(records), tables, digests, tuple(rescored),
                        tuple(notes), verify)
 
@@ -89,15 +98,19 @@ def _profile_hash(rules: Rules) -> str:
 
 
 def _scorecard(board: Path, sub: Submission, rules: Rules, profile_hash: str, verify: bool,
-               workers: int) -> tuple[Submission, dict, bool]:
-    """The submission (header read) and its scorecard, rescored when missing or stale."""
+               workers: int) -> tuple[Submission, dict, bytes | None]:
+    """The submission (header read), its scorecard, and the bytes of a fresh scorecard to
+    write when the one on disk is missing or stale (None when it can be kept)."""
     from ..scoring import read_scorecard
     card_rel = sub.scorecard.relative_to(board).as_posix()
     if sub.file is None:
-        return _listed_only(board, sub, card_rel, verify)
+        sub, card = _listed_only(board, sub, card_rel, verify)
+        return sub, card, None
     sub = read_header(sub)
     card, reason = None, "it is missing"
-    if sub.scorecard.exists():
+    if sub.scorecard.exists() and not sub.scorecard.is_file():
+        reason = "it is not a regular file"
+    elif sub.scorecard.exists():
         try:
             card = read_scorecard(sub.scorecard)
             reason = scorecard_is_stale(card, sub, profile_hash)
@@ -114,11 +127,11 @@ def _scorecard(board: Path, sub: Submission, rules: Rules, profile_hash: str, ve
             raise IntegrityError(
                 f"rescoring {sub.shown_path} gives scorecard hash {fresh['scorecard_hash']}, "
                 f"the committed scorecard records {card['scorecard_hash']}", where=card_rel)
-        return sub, card, False
+        return sub, card, None
     if reason is None:
-        return sub, card, False
-    _score(sub, rules, workers).write(sub.scorecard)
-    return sub, read_scorecard(sub.scorecard), True
+        return sub, card, None
+    data = _score(sub, rules, workers).to_bytes()
+    return sub, json.loads(data), data  # as read_scorecard would read the written file
 
 
 def _score(sub: Submission, rules: Rules, workers: int):
@@ -148,7 +161,7 @@ def _listed_only(board: Path, sub: Submission, card_rel: str, verify: bool):
                              f"external.toml lists {sub.listed_hash}", where=card_rel)
     header = {"split": card["split"], "model": card["model"]}
     return Submission(sub.shown_path, None, sub.scorecard, sub.listed_hash, header,
-                      sub.listed_hash), card, False
+                      sub.listed_hash), card
 
 
 def _group(board: Path, rules: Rules, cards: dict):
@@ -163,8 +176,9 @@ def _group(board: Path, rules: Rules, cards: dict):
             continue
         key = (network, name, split)
         if key in owner:
-            raise InputError(f"entry {name!r} already has a {network}/{split} submission "
-                             f"({owner[key]}); one submission per entry and split", where=shown)
+            raise InputError(f"entry {clean(name, 80)!r} already has a {network}/{split} "
+                             f"submission ({owner[key]}); one submission per entry and split",
+                             where=shown)
         owner[key] = shown
         try:
             rec = split_record(card["split"]["split_hash"], cache)
@@ -213,9 +227,11 @@ def _orphans(board: Path, subs: list[Submission]) -> list[str]:
 
 def _verify_output(path: Path, name: str, expected: bytes) -> None:
     try:
-        data = path.read_bytes()
-    except FileNotFoundError:
-        raise IntegrityError("table missing; run flowgauge rank to write it", where=name) from None
+        data = read_small_file(path, where=name, expected="a generated table", missing="",
+                               max_bytes=1 << 30)
+    except InputError as exc:
+        raise IntegrityError(exc.message or "table missing; run flowgauge rank to write it",
+                             where=name) from None
     check_seal(data, name)
     if data != expected:
         line = _first_difference(data, expected)
