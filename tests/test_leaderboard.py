@@ -17,7 +17,7 @@ import pytest
 import scipy.stats
 
 from flowgauge.errors import InputError, IntegrityError
-from flowgauge.leaderboard import (CAUTION, Scored, check_seal, competition_ranks,
+from flowgauge.leaderboard import (CAUTION, METRICS, Scored, check_seal, competition_ranks,
                                    paired_bootstrap_interval, parse_rules, rank_table)
 from flowgauge.leaderboard._render import render_outputs
 
@@ -217,22 +217,48 @@ def test_rules_parse_and_hash():
 
 @pytest.mark.parametrize("old, new, message", [
     ('metric = "restored_gap_pct_abs_mean"', 'metric = "speed"',
-     r"rules.toml: keys\[1\]: metric must be one of \['raw_gap_pct_mean', 'restoration_failure_rate', "
-     r"'restored_gap_pct_abs_mean', 'restored_gap_pct_mean'\]; got 'speed'"),
+     r"rules.toml: keys\[1\].metric: expected a metric name, one of raw_gap_pct_mean, "
+     r"restoration_failure_rate, restored_gap_pct_abs_mean, restored_gap_pct_mean; got 'speed'$"),
     ('direction = "lower"\n\n[ties]', 'direction = "down"\n\n[ties]',
-     r"rules.toml: keys\[1\]: direction must be one of \['lower', 'higher'\]; got 'down'"),
-    ("resamples = 1000", "resamples = 5", r"rules.toml: ties.resamples: expected an integer in "
-                                          r"\[100, 100000\]; got 5"),
+     r"rules.toml: keys\[1\].direction: expected which value is better, one of lower, higher; "
+     r"got 'down'$"),
+    ("resamples = 1000", "resamples = 5",
+     r"rules.toml: ties.resamples: expected an integer in \[100, 100000\]; got 5$"),
     ('format_version = 1', 'format_version = 2',
-     r'rules.toml: format: expected format = "flowgauge-rules" and format_version = 1'),
-    ('[scope]', '[scopes]', r"rules.toml: scopes: unknown field 'scopes'"),
+     r"rules.toml: format_version: expected the integer 1; got 2$"),
+    ('[scope]', '[scopes]', r"rules.toml: scopes: unknown key 'scopes'; expected one of format, "
+                            r"format_version, keys, published, scope, scoring, ties$"),
     ('splits = ["test-id", "test-ood", "test-edge"]', 'splits = []',
-     r"rules.toml: scope.splits: expected at least one name"),
+     r"rules.toml: scope.splits: expected a list of split names, at least 1; got an empty list$"),
     ("level = 0.95", "level = [", r"rules.toml: not valid TOML"),
+    # the cases below were accepted silently (or raised AttributeError) before the schema
+    ('format_version = 1', 'format_version = true',
+     r"rules.toml: format_version: expected the integer 1; got true$"),
+    ("level = 0.95", "levle = 0.95",
+     r"rules.toml: ties.levle: unknown key 'levle'; expected one of level, resamples, seed$"),
+    ('format_version = 1', 'format_version = 1\npublished = "x"',
+     r"rules.toml: published: expected a \[published\] table; got 'x'$"),
+    ('format_version = 1', 'format_version = 1\nscoring = 5',
+     r"rules.toml: scoring: expected a \[scoring\] table; got 5$"),
+    ("seed = 20261201", 'seed = 20261201\n\n[scoring]\nprofil = "default"',
+     r"rules.toml: scoring.profil: unknown key 'profil'; expected one of profile$"),
+    ('networks = "all"', 'networks = "some"',
+     r'rules.toml: scope.networks: expected "all" or a list of network names; got \'some\'$'),
+    ('direction = "lower"\n\n[ties]', '\n[ties]',
+     r"rules.toml: keys\[1\].direction: missing key 'direction'$"),
+    ('metric = "restored_gap_pct_abs_mean"', 'metric = "restoration_failure_rate"',
+     r"rules.toml: keys: a metric is listed twice$"),
 ])
 def test_rules_errors_name_the_field(old, new, message):
     with pytest.raises(InputError, match=message):
-        parse_rules(RULES.replace(old.encode(), new.encode()))
+        parse_rules(RULES.replace(old.encode(), new.encode(), 1))
+
+
+def test_rules_schema_lists_every_rankable_metric():
+    from flowgauge.leaderboard import rules_schema
+    # guard: the schema's metric names and the ranking's registry are the same set
+    assert set(rules_schema()["properties"]["keys"]["items"]["properties"]["metric"]["enum"]) == \
+        set(METRICS)
 
 
 # --- outputs -------------------------------------------------------------------------------

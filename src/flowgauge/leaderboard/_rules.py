@@ -3,14 +3,19 @@ ranking keys and their directions, and the settings of the tie test."""
 
 from __future__ import annotations
 
+import functools
+import json
 import tomllib
 from dataclasses import dataclass
 from pathlib import Path
 
 from .._io import sha256_hex
 from ..errors import InputError
+from ._files import read_small_file
+from ._text import clean
 
-__all__ = ["METRICS", "DIRECTIONS", "MetricSpec", "RankKey", "Rules", "load_rules", "parse_rules"]
+__all__ = ["METRICS", "DIRECTIONS", "MetricSpec", "RankKey", "Rules", "load_rules", "parse_rules",
+           "rules_schema", "SCHEMA_PATH"]
 
 
 @dataclass(frozen=True)
@@ -45,7 +50,8 @@ METRICS = {
 }
 
 DIRECTIONS = ("lower", "higher")
-_TOP_KEYS = {"format", "format_version", "scope", "keys", "ties", "scoring", "published"}
+SCHEMA_PATH = Path(__file__).resolve().parent.parent / "schema" / "rules.schema.json"
+MAX_RULES_BYTES = 1 << 20
 
 
 @dataclass(frozen=True)
@@ -72,97 +78,97 @@ class Rules:
 def load_rules(path: str | Path) -> Rules:
     """Read and check a rules file; every mistake names the file and the field."""
     path = Path(path)
-    try:
-        data = path.read_bytes()
-    except FileNotFoundError:
-        raise InputError("no rules file here; a leaderboard folder needs rules.toml",
-                         where=str(path)) from None
+    data = read_small_file(path, where=str(path), expected="a rules file in TOML",
+                           missing="no rules file here; a leaderboard folder needs rules.toml",
+                           max_bytes=MAX_RULES_BYTES)
     return parse_rules(data, where=str(path))
 
 
 def parse_rules(data: bytes, *, where: str = "rules.toml") -> Rules:
+    """The rule in ``data`` (the bytes of a rules file), checked against
+    ``schema/rules.schema.json``: the first mistake raises :class:`InputError` naming the key
+    and what was expected."""
     try:
         doc = tomllib.loads(data.decode("utf-8"))
     except (tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
-        raise InputError(f"not valid TOML: {exc}", where=where) from None
-    unknown = sorted(set(doc) - _TOP_KEYS)
-    if unknown:
-        raise InputError(f"unknown field {unknown[0]!r}; expected one of {sorted(_TOP_KEYS)}",
-                         where=f"{where}: {unknown[0]}")
-    if doc.get("format") != "flowgauge-rules" or doc.get("format_version") != 1:
-        raise InputError('expected format = "flowgauge-rules" and format_version = 1',
-                         where=f"{where}: format")
-    scope = _table(doc, "scope", where)
-    ties = _table(doc, "ties", where)
-    scoring = doc.get("scoring", {})
+        raise InputError(f"not valid TOML: {clean(exc, 300)}", where=where) from None
+    _check_schema(doc, where)
+    scope, ties, scoring = doc["scope"], doc["ties"], doc.get("scoring", {})
+    networks = scope.get("networks", "all")
     return Rules(
-        networks=_networks(scope.get("networks", "all"), where),
-        splits=_str_list(scope.get("splits"), f"{where}: scope.splits", nonempty=True),
-        keys=_keys(doc.get("keys"), where),
-        level=_number(ties, "level", 0.95, where, lo=0.5, hi=0.999),
-        resamples=int(_number(ties, "resamples", 2000, where, lo=100, hi=100000, integer=True)),
-        seed=int(_number(ties, "seed", 0, where, lo=0, hi=2**63 - 1, integer=True)),
-        profile=_optional_str(scoring, "profile", f"{where}: scoring.profile"),
-        published=_str_list(doc.get("published", {}).get("splits", []),
-                            f"{where}: published.splits", nonempty=False),
+        networks=None if networks == "all" else tuple(networks),
+        splits=tuple(scope["splits"]),
+        keys=_keys(doc["keys"], where),
+        level=float(ties.get("level", 0.95)),
+        resamples=int(ties.get("resamples", 2000)),
+        seed=int(ties.get("seed", 0)),
+        profile=scoring.get("profile"),
+        published=tuple(doc.get("published", {}).get("splits", [])),
         sha256=sha256_hex(data),
     )
 
 
-def _table(doc: dict, name: str, where: str) -> dict:
-    value = doc.get(name)
-    if not isinstance(value, dict):
-        raise InputError(f"expected a [{name}] table", where=f"{where}: {name}")
-    return value
+@functools.lru_cache(maxsize=1)
+def rules_schema() -> dict:
+    """The JSON Schema (2020-12) of rules.toml, as TOML parses it."""
+    return json.loads(SCHEMA_PATH.read_text(encoding="utf-8"))
 
 
-def _networks(value, where: str) -> tuple[str, ...] | None:
-    if value == "all":
-        return None
-    return _str_list(value, f"{where}: scope.networks", nonempty=True)
+def _check_schema(doc: dict, where: str) -> None:
+    import jsonschema
+
+    validator = jsonschema.Draft202012Validator(rules_schema())
+    errors = sorted(validator.iter_errors(doc),
+                    key=lambda e: ([str(p) for p in e.absolute_path], e.validator))
+    if errors:
+        key, message = _explain(errors[0])
+        raise InputError(message, where=f"{where}: {key}" if key else where)
 
 
-def _str_list(value, where: str, *, nonempty: bool) -> tuple[str, ...]:
-    if not isinstance(value, list) or not all(isinstance(v, str) and v for v in value):
-        raise InputError("expected a list of names", where=where)
-    if nonempty and not value:
-        raise InputError("expected at least one name", where=where)
-    if len(set(value)) != len(value):
-        raise InputError("a name is listed twice", where=where)
-    return tuple(value)
+def _key_name(path) -> str:
+    out = ""
+    for part in path:
+        out += f"[{part}]" if isinstance(part, int) else (f".{part}" if out else str(part))
+    return out
 
 
-def _optional_str(table: dict, name: str, where: str) -> str | None:
-    value = table.get(name)
-    if value is not None and not (isinstance(value, str) and value):
-        raise InputError("expected a profile name", where=where)
-    return value
+def _shown(value) -> str:
+    """A TOML value as the rules file would write it (capped: it may be long)."""
+    if isinstance(value, bool):
+        return "true" if value else "false"
+    if isinstance(value, dict):
+        return "a table"
+    if isinstance(value, str):
+        return repr(clean(value, 80))
+    return clean(repr(value), 80)
 
 
-def _keys(value, where: str) -> tuple[RankKey, ...]:
-    if not isinstance(value, list) or not value:
-        raise InputError("expected at least one [[keys]] table", where=f"{where}: keys")
-    keys = []
-    for i, item in enumerate(value):
-        at = f"{where}: keys[{i}]"
-        metric = item.get("metric") if isinstance(item, dict) else None
-        if metric not in METRICS:
-            raise InputError(f"metric must be one of {sorted(METRICS)}; got {metric!r}", where=at)
-        direction = item.get("direction")
-        if direction not in DIRECTIONS:
-            raise InputError(f"direction must be one of {list(DIRECTIONS)}; got {direction!r}",
-                             where=at)
-        keys.append(RankKey(metric, direction))
+def _explain(error) -> tuple[str, str]:
+    """(the key, what was expected) for the first schema violation."""
+    key = _key_name(error.absolute_path)
+    schema, value, kind = error.schema, error.instance, error.validator
+    what = schema.get("description", "another value")
+    if kind == "additionalProperties":
+        allowed = sorted(schema.get("properties", {}))
+        extra = sorted(set(value) - set(allowed))[0]
+        name = f"{key}.{extra}" if key else extra
+        return name, f"unknown key {clean(extra, 80)!r}; expected one of {', '.join(allowed)}"
+    if kind == "required":
+        missing = next(k for k in schema["required"] if k not in value)
+        return (f"{key}.{missing}" if key else missing), f"missing key {missing!r}"
+    if kind == "enum":
+        return key, (f"expected {what}, one of {', '.join(map(str, schema['enum']))}; "
+                     f"got {_shown(value)}")
+    if kind == "minItems":
+        return key, f"expected {what}, at least {schema['minItems']}; got an empty list"
+    if kind == "uniqueItems":
+        return key, "a name is listed twice"
+    return key, f"expected {what}; got {_shown(value)}"
+
+
+def _keys(value: list, where: str) -> tuple[RankKey, ...]:
+    """The ranking keys (their fields already checked by the schema), each metric once."""
+    keys = tuple(RankKey(item["metric"], item["direction"]) for item in value)
     if len({k.metric for k in keys}) != len(keys):
         raise InputError("a metric is listed twice", where=f"{where}: keys")
-    return tuple(keys)
-
-
-def _number(table: dict, name: str, default, where: str, *, lo, hi, integer: bool = False):
-    value = table.get(name, default)
-    ok = isinstance(value, int) if integer else isinstance(value, (int, float))
-    if isinstance(value, bool) or not ok or not lo <= value <= hi:
-        kind = "an integer" if integer else "a number"
-        raise InputError(f"expected {kind} in [{lo}, {hi}]; got {value!r}",
-                         where=f"{where}: ties.{name}")
-    return value
+    return keys
