@@ -83,7 +83,7 @@ def test_rank_writes_sealed_tables_and_same_bytes_again(board, capsys):
     out = capsys.readouterr().out
     assert "rescored" not in out  # scorecards are fresh: nothing is scored again
     assert _tables(board) == before
-    assert "ieee14: 1. baseline" in out
+    assert re.search(r"ieee14: 2 ranked over test-id, test-ood\n +1  baseline ", out)
 
 
 def test_tables_record_every_hash(board):
@@ -125,7 +125,7 @@ def test_verify_passes_then_catches_one_changed_number(board, capsys):
     err = capsys.readouterr().err
     assert re.search(r"Error: scorecards/ieee14/test-id/linear.json: scorecard of "
                      r"submissions/ieee14/test-id/linear.json does not match it: its "
-                     r"predictions_hash [0-9a-f]{64} differs from the current [0-9a-f]{64}", err)
+                     r"predictions_hash [0-9a-f]{12} differs from the current [0-9a-f]{12}\n", err)
     assert _tables(board) == before  # --verify writes nothing
 
 
@@ -133,7 +133,7 @@ def test_verify_catches_an_edited_table(board, capsys):
     md = board / "ranking.md"
     md.write_bytes(md.read_bytes().replace(b"baseline", b"Baseline", 1))
     assert main(["rank", "--verify", str(board)]) == 3
-    assert re.search(r"Error: ranking.md: records content hash [0-9a-f]{64}, its content hashes to",
+    assert re.search(r"Error: ranking.md: records content hash [0-9a-f]{12}, its content hashes to [0-9a-f]{12}\n",
                      capsys.readouterr().err)
     # resealed by hand: the seal is right, but the bytes are not those rebuilt from raw files
     body = md.read_bytes().rstrip(b"\n").rpartition(b"\n")[0] + b"\n"
@@ -152,8 +152,8 @@ def test_verify_catches_a_rehashed_scorecard(board, capsys):
     path.write_text(json.dumps(card))
     assert main(["rank", "--verify", str(board)]) == 3
     assert re.search(r"Error: scorecards/ieee14/test-ood/nearest.json: rescoring "
-                     r"submissions/ieee14/test-ood/nearest.json gives scorecard hash [0-9a-f]{64}, "
-                     r"the committed scorecard records [0-9a-f]{64}", capsys.readouterr().err)
+                     r"submissions/ieee14/test-ood/nearest.json gives scorecard hash [0-9a-f]{12}, "
+                     r"the committed scorecard records [0-9a-f]{12}\n", capsys.readouterr().err)
 
 
 def test_rank_rescores_missing_and_stale_scorecards(board, capsys):
@@ -172,8 +172,9 @@ def test_rank_rescores_missing_and_stale_scorecards(board, capsys):
         in capsys.readouterr().err
     assert main(["rank", str(board)]) == 0
     out = capsys.readouterr().out
-    assert ("rescored 3 submission(s): scorecards/ieee14/test-id/nearest.json, "
-            "scorecards/ieee14/test-ood/linear.json, scorecards/ieee14/test-ood/nearest.json") in out
+    assert ("rescored 3 submission(s):\n  scorecards/ieee14/test-id/nearest.json\n"
+            "  scorecards/ieee14/test-ood/linear.json\n  scorecards/ieee14/test-ood/nearest.json\n"
+            ) in out
     assert _tables(board) == before
 
 
@@ -202,7 +203,7 @@ def test_external_submission_listed_by_path_and_hash(board, tmp_path, capsys):
     listing.write_text(f'[[submission]]\npath = "{far}"\npredictions_hash = "{"0" * 64}"\n')
     assert main(["rank", str(board)]) == 3
     assert re.search(r"Error: scorecards/external/linear-ood.json: scorecard records "
-                     r"predictions_hash [0-9a-f]{64}, external.toml lists 0{64}",
+                     r"predictions_hash [0-9a-f]{12}, external.toml lists 0{12}\n",
                      capsys.readouterr().err)
 
 
@@ -212,8 +213,10 @@ def test_published_commitment_is_checked(board, pristine, capsys):
     rules = board / "rules.toml"
     rules.write_text(RULES + '\n[published]\nsplits = ["published/ieee14-test-id"]\n')
     assert main(["rank", str(board)]) == 0
+    out = capsys.readouterr().out
+    assert max(len(line) for line in out.splitlines()) <= 80  # the note wraps at 80 columns
     assert re.search(r"note: ieee14/test-id: the references used match the commitment published "
-                     r"in published/ieee14-test-id \([0-9a-f]{64}\)", capsys.readouterr().out)
+                     r"in published/ieee14-test-id \([0-9a-f]{12}\)", out.replace("\n", " "))
     assert "the references used match the commitment" in (board / "index.html").read_text()
     manifest = board / "published/ieee14-test-id/manifest.json"
     doc = json.loads(manifest.read_text())
@@ -221,7 +224,7 @@ def test_published_commitment_is_checked(board, pristine, capsys):
     manifest.write_text(json.dumps(doc))
     assert main(["rank", str(board)]) == 3
     assert re.search(r"Error: published/ieee14-test-id: the references of ieee14/test-id used for "
-                     r"scoring \(hash [0-9a-f]{64}\) differ from the published commitment f{64}",
+                     r"scoring \(hash [0-9a-f]{12}\) differ from the published commitment f{12}\n",
                      capsys.readouterr().err)
 
 
