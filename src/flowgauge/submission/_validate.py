@@ -68,10 +68,17 @@ def validate_predictions(source: str | os.PathLike | Predictions, split=None, *,
 def check_predictions(source: str | os.PathLike | Predictions, split=None, *,
                       max_bytes: int = DEFAULT_MAX_BYTES) -> ValidationReport:
     """:func:`validate_predictions`, raising :class:`InputError` (up to 20 errors, then the
-    count) unless the predictions are valid. Returns the report: ``.predictions``, ``.split``."""
+    count) unless the predictions are valid, then the split's files checked against their
+    manifest (:func:`~flowgauge.splits.verify_split`: IntegrityError on any difference).
+    Returns the report: ``.predictions``, ``.split``."""
     report = validate_predictions(source, split, max_bytes=max_bytes)
     if not report.valid:
         raise InputError(report.message(), where=str(report.path) if report.path else "predictions")
+    if report.split is not None and getattr(report.split, "path", None) is not None:
+        # the split files must be what their manifest records, as `splits verify` checks them
+        # (IntegrityError, exit 3, naming the file and column)
+        from ..splits import verify_split
+        verify_split(report.split.path)
     return report
 
 
