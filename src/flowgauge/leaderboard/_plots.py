@@ -8,9 +8,11 @@ mathtext, and matplotlib's SVG writer escapes them as XML."""
 
 from __future__ import annotations
 
+import contextlib
 import io
 import math
 import re
+import warnings
 
 import matplotlib
 
@@ -129,11 +131,21 @@ def _overlap(a: Bbox, b: Bbox) -> float:
     return w * h if w > 0 and h > 0 else 0.0
 
 
+@contextlib.contextmanager
+def _quiet_glyphs():
+    """A name may hold characters the font lacks: the SVG keeps them as text (the browser
+    finds a font), so matplotlib's warning about the missing glyph is not for the user."""
+    with warnings.catch_warnings():
+        warnings.filterwarnings("ignore", message=r"Glyph \d+ .* missing from",
+                                category=UserWarning)
+        yield
+
+
 def tradeoff_svg(network: str, entries: dict, splits: tuple[str, ...], order: list[str], *,
                  id_prefix: str = "tradeoff") -> str:
     """Mean absolute restored gap [%] against restoration failure rate, one colour per entry,
     one marker per split, and a larger ringed marker, labelled, for the mean over the splits."""
-    with matplotlib.rc_context({**_RC, "svg.hashsalt": f"flowgauge-{network}-tradeoff"}):
+    with _quiet_glyphs(), matplotlib.rc_context({**_RC, "svg.hashsalt": f"flowgauge-{network}-tradeoff"}):
         fig = Figure(figsize=(_WIDTH_IN, 4.6))
         ax = fig.add_subplot()
         names = order + sorted(set(entries) - set(order))
@@ -176,7 +188,7 @@ def tradeoff_svg(network: str, entries: dict, splits: tuple[str, ...], order: li
 def split_bars_svg(network: str, entries: dict, splits: tuple[str, ...], *,
                    id_prefix: str = "bars") -> str:
     """Restoration failure rate per split, one bar per entry in each split's group."""
-    with matplotlib.rc_context({**_RC, "svg.hashsalt": f"flowgauge-{network}-bars"}):
+    with _quiet_glyphs(), matplotlib.rc_context({**_RC, "svg.hashsalt": f"flowgauge-{network}-bars"}):
         fig = Figure(figsize=(_WIDTH_IN, 3.8))
         ax = fig.add_subplot()
         names = sorted(entries)
