@@ -1,5 +1,8 @@
 """Write the baseline entries of the committed leaderboard: every baseline on every frozen test
-split, as leaderboard/submissions/<network>/<split>/<baseline>.json.
+split, as leaderboard/submissions/<network>/<split>/<baseline>.json, and the calibration rows:
+each split's reference with seeded noise at three levels, as
+leaderboard/submissions/calibration/<network>/<split>/noise-<level>.parquet (shown apart on the
+board, not ranked).
 
     python tools/make_baseline_board.py [--networks demo ieee14 ...]
     flowgauge rank          # then rescore and rebuild the tables and the page
@@ -14,6 +17,8 @@ import sys
 from pathlib import Path
 
 from flowgauge.baselines import BASELINES, write_baseline
+from flowgauge.baselines._calibration import CALIBRATION_LEVELS, calibration_name, calibration_predictions
+from flowgauge.submission import write_predictions
 from flowgauge.splits import load_split, splits_root
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -34,7 +39,17 @@ def main(argv: list[str] | None = None) -> int:
             for name in sorted(BASELINES):
                 out = args.out / network / split_name / f"{name}.json"
                 write_baseline(name, split, out, train=train)
-                print(f"{network}/{split_name}: {name} -> {out.relative_to(ROOT)}", flush=True)
+                print(f"{network}/{split_name}: {name} -> {out}", flush=True)
+            for level in CALIBRATION_LEVELS:
+                pg, vm = calibration_predictions(split, level)
+                out = args.out / "calibration" / network / split_name / f"noise-{level:.0e}.parquet"
+                out.parent.mkdir(parents=True, exist_ok=True)
+                model = {"name": calibration_name(level), "authors": ["flowgauge"],
+                         "description": f"Calibration row: the split's reference with seeded noise, relative "
+                                        f"{level:.0e} on pg_mw and absolute {level:.0e} p.u. on vm_pu.",
+                         "training_data_only": True}
+                write_predictions(split, pg_mw=pg, vm_pu=vm, model=model, path=out)
+                print(f"{network}/{split_name}: {model['name']} -> {out}", flush=True)
     return 0
 
 

@@ -9,8 +9,8 @@ from pathlib import Path
 
 from .. import __version__
 from ..errors import InputError, IntegrityError
-from ._board import (Submission, check_commitments, collect_submissions, read_header, scored,
-                     scorecard_is_stale, split_record)
+from ._board import (SUBMISSIONS_DIR, Submission, check_commitments, collect_submissions, read_header,
+                     scored, scorecard_is_stale, split_record)
 from ._files import read_small_file, write_set
 from ._ranking import RankTable, Scored, rank_table
 from ._render import OUTPUTS, check_seal, render_outputs
@@ -70,6 +70,10 @@ def build_board(board: str | Path, *, verify: bool = False, workers: int = 1,
             rescored.append(sub.scorecard.relative_to(board).as_posix())
     say("ranking", len(subs), len(subs))
     entries, records, notes, splits_used = _group(board, rules, cards)
+    _check_one_profile(cards)
+    calibration = {n: {e: v for e, v in es.items() if e in _calibration_names(cards, n)}
+                   for n, es in entries.items()}
+    entries = {n: {e: v for e, v in es.items() if e not in calibration[n]} for n, es in entries.items()}
     if verify:
         from ..splits import verify_split
         for i, split in enumerate(splits_used):  # recompute every hash the manifest records
@@ -78,10 +82,12 @@ def build_board(board: str | Path, *, verify: bool = False, workers: int = 1,
     notes = check_commitments(board, rules, splits_used) + notes + _orphans(board, subs)
     notes += [f"rules.toml names network {n}, which has no counted submission"
               for n in (rules.networks or ()) if n not in entries]
+    entries = {n: es for n, es in entries.items() if es}
     tables = tuple(t for network in _network_order(entries)
-                   for t in _network_tables(network, entries[network], rules))
+                   for t in _network_tables(network, entries[network], rules, calibration.get(network, {})))
     outputs = render_outputs(board=board, rules=rules, records=records, tables=tables,
-                             entries=entries, splits_used=splits_used, notes=notes)
+                             entries={n: {**entries[n], **calibration.get(n, {})} for n in entries},
+                             splits_used=splits_used, notes=notes)
     digests = {name: check_seal(data, name) for name, data in outputs.items()}
     if verify:
         for name, data in outputs.items():
@@ -208,13 +214,52 @@ def _network_order(entries: dict) -> list[str]:
     return sorted(entries, key=lambda n: (order.get(n, len(order)), n))
 
 
-def _network_tables(network: str, entries: dict, rules: Rules) -> list[RankTable]:
-    tables = [rank_table(network, "all", rules.splits, entries, rules)]
+def _network_tables(network: str, entries: dict, rules: Rules, calibration: dict) -> list[RankTable]:
+    """The overall table, one table per split, and the calibration rows (ordered like a
+    ranking over all splits, but not ranked: they are the reference with known noise)."""
+    excluded = {} if rules.allow_extra_data else {
+        e: "declares it used more than the training split; rules.toml ranks such entries only with "
+           "[entries] allow_extra_data = true"
+        for e, s in entries.items() if any(not _training_only(sc.card) for sc in s.values())}
+    tables = [rank_table(network, "all", rules.splits, entries, rules, excluded)]
     for split in rules.splits:
         present = {e: s for e, s in entries.items() if split in s}
         if present:
-            tables.append(rank_table(network, split, (split,), present, rules))
+            tables.append(rank_table(network, split, (split,), present, rules, excluded))
+    if calibration:
+        tables.append(rank_table(network, CALIBRATION_SCOPE, rules.splits, calibration, rules))
     return tables
+
+
+CALIBRATION_SCOPE = "calibration"
+CALIBRATION_DIR = "calibration"  # submissions/calibration/...: rows of the reference with known noise
+
+
+def _training_only(card: dict) -> bool:
+    return (card.get("model") or {}).get("training_data_only") is True
+
+
+def _calibration_names(cards: dict, network: str) -> set[str]:
+    """Entry names of the calibration submissions (under ``submissions/calibration/``)."""
+    prefix = f"{SUBMISSIONS_DIR}/{CALIBRATION_DIR}/"
+    return {card["model"]["name"] for shown, (sub, card) in cards.items()
+            if shown.startswith(prefix) and card["split"]["network"] == network}
+
+
+def _check_one_profile(cards: dict) -> None:
+    """Scorecards of different profiles never meet in one ranking."""
+    seen: dict[str, str] = {}
+    for shown, (sub, card) in sorted(cards.items()):
+        prof = card.get("profile") or {}
+        seen.setdefault(prof.get("hash", ""), shown)
+        if len(seen) > 1:
+            (h1, f1), (h2, f2) = list(seen.items())[:2]
+            def name(f):
+                p = cards[f][1].get("profile") or {}
+                return f"{clean(p.get('name'), 40)!r} version {clean(p.get('version'), 10)}"
+            raise InputError(f"scorecards of two profiles cannot be ranked together: {f1} was scored with "
+                             f"profile {name(f1)}, {f2} with profile {name(f2)}; rescore with one profile",
+                             where=f2)
 
 
 def _orphans(board: Path, subs: list[Submission]) -> list[str]:

@@ -25,7 +25,7 @@ from matplotlib.transforms import Bbox  # noqa: E402
 from ._ranking import metric_value  # noqa: E402
 from ._text import clean  # noqa: E402
 
-__all__ = ["tradeoff_svg", "split_bars_svg", "prefix_ids", "LABEL_CAP"]
+__all__ = ["tradeoff_svg", "split_bars_svg", "curves_svg", "prefix_ids", "LABEL_CAP"]
 
 LABEL_CAP = 32  # characters of an entry name shown in a plot (the tables show it whole)
 _MARKERS = ("o", "s", "^", "D", "v", "P")
@@ -215,3 +215,63 @@ def split_bars_svg(network: str, entries: dict, splits: tuple[str, ...], *,
             _plain_text(legend.get_texts())
         fig.tight_layout()
         return _svg(fig, f"flowgauge-{network}-bars", id_prefix)
+
+
+# curve kind -> (aggregate, x field, y field, x label, y label, title)
+_CURVES = {
+    "solved": ("solved_curve", "thresholds_pct", "share", "threshold on |restored gap| [%] (log scale)",
+               "share of samples solved (higher is better)", "share solved against the gap threshold"),
+    "tolerance": ("tolerance_curve", "multiples", "failure_rate", "multiple of the profile's tolerances (log scale)",
+                  "restoration failure rate (lower is better)", "failure rate against the tolerances"),
+}
+
+
+def _mean_curve(per_split: dict, splits, kind: str):
+    """(x, mean over the splits of y) of an entry's curve, or None when a split lacks it."""
+    agg, xf, yf = _CURVES[kind][:3]
+    xs, ys = None, []
+    for split in splits:
+        sc = per_split.get(split)
+        curve = (sc.card.get("aggregates") or {}).get(agg) if sc is not None else None
+        if not isinstance(curve, dict) or curve.get(yf) is None:
+            return None
+        xs = curve[xf]
+        ys.append(curve[yf])
+    return (xs, [sum(v) / len(v) for v in zip(*ys)]) if ys else None
+
+
+def curves_svg(network: str, entries: dict, calibration: dict, splits: tuple[str, ...], kind: str, *,
+               id_prefix: str = "curve") -> str | None:
+    """One line per entry (solid) and per calibration row (dashed, grey): the mean over the
+    splits of the scorecards' solved-share curve (``kind="solved"``) or tolerance curve
+    (``kind="tolerance"``). None when no entry has the curve (format-1 scorecards)."""
+    _, _, _, xlabel, ylabel, title = _CURVES[kind]
+    lines = []
+    for i, name in enumerate(sorted(entries)):
+        c = _mean_curve(entries[name], splits, kind)
+        if c is not None:
+            lines.append((c, _label(name), {"color": _colour(i), "lw": 1.6}))
+    for j, name in enumerate(sorted(calibration)):
+        c = _mean_curve(calibration[name], splits, kind)
+        if c is not None:
+            grey = str(0.25 + 0.2 * j)
+            lines.append((c, _label(name), {"color": grey, "lw": 1.2, "ls": "--"}))
+    if not lines:
+        return None
+    salt = f"flowgauge-{network}-{kind}"
+    with matplotlib.rc_context({**_RC, "svg.hashsalt": salt}):
+        fig = Figure(figsize=(_WIDTH_IN, 4.0))
+        ax = fig.add_subplot()
+        for (xs, ys), label, style in lines:
+            ax.plot(xs, ys, marker="o", ms=3, label=label, **style)
+        ax.set_xscale("log")
+        ax.set_ylim(-0.03, 1.03)
+        ax.set_xlabel(xlabel)
+        ax.set_ylabel(ylabel)
+        ax.set_title(f"{_label(network)}: {title}")
+        _plain_text([ax.title])
+        ax.grid(True, lw=0.4, alpha=0.5)
+        legend = ax.legend(loc="upper center", bbox_to_anchor=(0.5, -0.16), ncol=2, frameon=False)
+        _plain_text(legend.get_texts())
+        fig.tight_layout()
+        return _svg(fig, salt, id_prefix)

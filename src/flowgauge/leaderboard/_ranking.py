@@ -48,6 +48,7 @@ class RankTable:
     splits: tuple[str, ...]
     standings: tuple[Standing, ...]
     unranked: tuple[tuple[str, str], ...]  # (entry, reason)
+    keys: tuple = ()  # the RankKeys this table is ordered by
 
 
 def metric_value(card: dict, metric: str) -> float:
@@ -77,9 +78,9 @@ def per_sample_column(scored: Scored, column: str) -> tuple[np.ndarray, np.ndarr
     return ids[order], values[order]
 
 
-def _sort_key(values: tuple[float, ...], rules: Rules, name: str) -> tuple:
+def _sort_key(values: tuple[float, ...], keys, name: str) -> tuple:
     parts = []
-    for key, v in zip(rules.keys, values):
+    for key, v in zip(keys, values):
         v = math.inf if math.isnan(v) else (v if key.direction == "lower" else -v)
         parts.append(v)
     return (*parts, name)
@@ -87,26 +88,32 @@ def _sort_key(values: tuple[float, ...], rules: Rules, name: str) -> tuple:
 
 def rank_table(
     network: str, scope: str, splits: tuple[str, ...],
-    entries: Mapping[str, Mapping[str, Scored]], rules: Rules,
+    entries: Mapping[str, Mapping[str, Scored]], rules: Rules, excluded: Mapping[str, str] | None = None,
 ) -> RankTable:
     """Rank ``entries`` (entry name -> split -> scorecard) of ``network`` over ``splits``.
 
     Entries are ordered by the rule's keys (each the mean over ``splits`` of the per-split
     value), then by name. Neighbours whose paired bootstrap interval for the difference in
-    the primary key contains zero share a rank (standard competition ranking).
+    the primary key contains zero share a rank (standard competition ranking). The keys are
+    ``rules.keys_for(scope)``; entries named in ``excluded`` (entry -> reason) are not ranked.
     """
+    keys = rules.keys_for(scope)
     complete, unranked = {}, []
     for name in sorted(entries):
         missing = [s for s in splits if s not in entries[name]]
-        if missing:
+        if excluded and name in excluded:
+            unranked.append((name, excluded[name]))
+        elif missing:
             unranked.append((name, "no submission for " + ", ".join(missing)))
         else:
             complete[name] = [entries[name][s] for s in splits]
     values = {name: tuple(float(np.mean([metric_value(c.card, k.metric) for c in cards]))
-                          for k in rules.keys)
+                          for k in keys)
               for name, cards in complete.items()}
-    order = sorted(complete, key=lambda n: _sort_key(values[n], rules, n))
-    primary = METRICS[rules.keys[0].metric]
+    order = sorted(complete, key=lambda n: _sort_key(values[n], keys, n))
+    if not order:
+        return RankTable(network, scope, splits, (), tuple(unranked), keys)
+    primary = METRICS[keys[0].metric]
     columns = {n: _aligned(complete[n], primary.per_sample, complete[order[0]], primary.absolute)
                for n in order}
     cis: list[tuple[float, float] | None] = [None]
@@ -118,7 +125,7 @@ def rank_table(
     ranks = competition_ranks(tied)
     standings = tuple(Standing(r, n, values[n], ci, t)
                       for r, n, ci, t in zip(ranks, order, cis, tied))
-    return RankTable(network, scope, splits, standings, tuple(unranked))
+    return RankTable(network, scope, splits, standings, tuple(unranked), keys)
 
 
 def _aligned(cards: list[Scored], column: str, reference: list[Scored],

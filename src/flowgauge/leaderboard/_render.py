@@ -18,7 +18,7 @@ from markupsafe import Markup, escape
 from .. import __version__
 from .._io import round_sig, sha256_hex
 from ..errors import IntegrityError
-from ._plots import split_bars_svg, tradeoff_svg
+from ._plots import curves_svg, split_bars_svg, tradeoff_svg
 from ._ranking import RankTable, metric_value
 from ._rules import METRICS, Rules
 from ._text import NAME_CAP, TEXT_CAP, clean, csv_text, md, md_code, safe_link, tex
@@ -106,7 +106,7 @@ def _num(v) -> str:
 
 
 _DIGITS = {"restoration_failure_rate": 4, "restored_gap_pct_mean": 3,
-           "restored_gap_pct_abs_mean": 3, "raw_gap_pct_mean": 3}
+           "restored_gap_pct_abs_mean": 3, "raw_gap_pct_mean": 3, "solved_share": 4, "severity_mean": 4}
 
 
 def _ci_text(ci, digits: int) -> str:
@@ -114,7 +114,8 @@ def _ci_text(ci, digits: int) -> str:
 
 
 def _table_view(t: RankTable, rules: Rules, entries: dict, ids: dict, table_id: str) -> dict:
-    digits = [_DIGITS[k.metric] for k in rules.keys]
+    keys = t.keys or rules.keys
+    digits = [_DIGITS[k.metric] for k in keys]
     rows = []
     for s in t.standings:
         cards = [entries[s.entry][sp].card for sp in t.splits]
@@ -126,14 +127,22 @@ def _table_view(t: RankTable, rules: Rules, entries: dict, ids: dict, table_id: 
             "ci": _ci_text(s.diff_ci, digits[0]),
             "ci_raw": ("", "") if s.diff_ci is None else tuple(_num(x) for x in s.diff_ci),
         })
+    calibration = t.scope == "calibration"
+    if calibration:
+        for r in rows:
+            r.update(rank="–", tied=False, ci="", ci_raw=("", ""))
     return {"network": t.network, "scope": t.scope, "splits": list(t.splits), "rows": rows,
             "unranked": [f"{clean(e)} ({clean(why, 1000)})" for e, why in t.unranked],
-            "id": table_id}
+            "id": table_id, "calibration": calibration, "key_list": _key_views(keys)}
+
+
+def _key_views(keys) -> list[dict]:
+    return [{"metric": k.metric, "direction": k.direction, "label": METRICS[k.metric].label} for k in keys]
 
 
 def _context(*, board, rules, records, tables, entries, splits_used, notes, with_plots: bool):
-    keys = [{"metric": k.metric, "direction": k.direction, "label": METRICS[k.metric].label}
-            for k in rules.keys]
+    keys = _key_views(rules.keys)
+    split_keys = [{"split": clean(name), "key_list": _key_views(ks)} for name, ks in rules.split_keys]
     names = list(dict.fromkeys(t.network for t in tables))
     net_ids = _unique_slugs(names, "network")
     table_ids = _unique_slugs([(t.network, t.scope) for t in tables], "table")
@@ -148,17 +157,26 @@ def _context(*, board, rules, records, tables, entries, splits_used, notes, with
                "details": _details(network, entries[network], rules, records, ids)}
         if with_plots:  # matplotlib's SVG: text escaped by its XML writer, ids prefixed per plot
             overall = next(t for t in tables if t.network == network and t.scope == "all")
+            calib_names = {s.entry for t in tables if t.network == network and t.scope == "calibration"
+                           for s in t.standings}
+            ranked = {e: v for e, v in entries[network].items() if e not in calib_names}
+            calib = {e: v for e, v in entries[network].items() if e in calib_names}
             net["tradeoff_svg"] = Markup(tradeoff_svg(
-                network, entries[network], rules.splits, [s.entry for s in overall.standings],
+                network, ranked, rules.splits, [s.entry for s in overall.standings],
                 id_prefix=f"{net_ids[network]}-tradeoff"))
             net["bars_svg"] = Markup(split_bars_svg(
-                network, entries[network], rules.splits, id_prefix=f"{net_ids[network]}-bars"))
+                network, ranked, rules.splits, id_prefix=f"{net_ids[network]}-bars"))
+            for kind in ("solved", "tolerance"):
+                svg = curves_svg(network, ranked, calib, rules.splits, kind,
+                                 id_prefix=f"{net_ids[network]}-{kind}")
+                net[f"{kind}_svg"] = None if svg is None else Markup(svg)
         networks.append(net)
     shown = [{**r, "submission": clean(r["submission"]), "entry": clean(r["entry"]),
               "network": clean(r["network"]), "split": clean(r["split"]),
               "scorecard": clean(r["scorecard"])} for r in records]
     return {
         "version": __version__, "rules": rules, "rules_sha256": rules.sha256, "keys": keys,
+        "split_keys": split_keys,
         "level_pct": f"{rules.level * 100:g}", "networks": networks, "records": shown,
         "splits_used": splits_used, "notes": [clean(n, 2000) for n in notes],
         "caution": CAUTION,
@@ -191,6 +209,7 @@ def _details(network: str, entries: dict, rules: Rules, records: list[dict],
                                if v is not None],
                 "inference_ms": {k: _fmt(v, 3) for k, v in (a.get("inference_ms") or {}).items()},
                 "speedup": _fmt(a.get("speedup_indicative"), 1) or None,
+                "graded": _graded_view(a),
                 "record": {**rec, "scorecard": clean(rec["scorecard"])},
             })
         families = sorted({f for s in per_split for f, *_ in s["violations"]})
@@ -199,12 +218,27 @@ def _details(network: str, entries: dict, rules: Rules, records: list[dict],
                  for s in per_split])
             for f in families]
         model = entries[name][next(iter(entries[name]))].card.get("model") or {}
-        out.append({"name": clean(name), "id": ids[name],
+        training_only = all((sc.card.get("model") or {}).get("training_data_only") is True
+                            for sc in entries[name].values())
+        out.append({"name": clean(name), "id": ids[name], "training_only": training_only,
                     "description": clean(model.get("description"), TEXT_CAP),
                     "authors": _authors(model.get("authors")),
                     "link": safe_link(model.get("link")),
                     "splits": per_split, "violation_rows": violation_rows})
     return out
+
+
+def _graded_view(a: dict) -> dict | None:
+    """Solved share, severity and the tolerance curve of a format-2 scorecard (None for format 1)."""
+    if "solved_share" not in a:
+        return None
+    sev = a.get("severity") or {}
+    curve = a.get("tolerance_curve") or {}
+    pairs = zip(curve.get("multiples") or [], curve.get("failure_rate") or [])
+    return {"solved": _fmt(a.get("solved_share"), 4), "threshold": _fmt(a.get("solved_threshold_pct"), 3),
+            "severity": {k: _fmt(sev.get(k), 4) for k in ("mean", "p95", "max")},
+            "switched": _fmt((a.get("switched_generators") or {}).get("mean"), 3),
+            "curve": ", ".join(f"{_fmt(m, 3)}x {_fmt(f, 4)}" for m, f in pairs)}
 
 
 def _authors(value) -> str:
@@ -237,8 +271,10 @@ def _csv(ctx: dict, tables: tuple[RankTable, ...], entries: dict, records: list[
     comment (pandas ``comment="#"``); text cells are one line and cannot start a formula."""
     buf = io.StringIO()
     w = csv.writer(buf, lineterminator="\n", quoting=csv.QUOTE_ALL)
+    metrics = list(dict.fromkeys([k["metric"] for k in ctx["keys"]]
+                                 + [k["metric"] for sk in ctx["split_keys"] for k in sk["key_list"]]))
     w.writerow(["network", "scope", "splits", "rank", "entry", "tied_with_above",
-                *[k["metric"] for k in ctx["keys"]], "diff_to_above_ci_low",
+                *metrics, "diff_to_above_ci_low",
                 "diff_to_above_ci_high", "submissions", "predictions_sha256",
                 "scorecards", "scorecard_sha256", "split_sha256", "rules_sha256",
                 "flowgauge_version"])
@@ -247,9 +283,12 @@ def _csv(ctx: dict, tables: tuple[RankTable, ...], entries: dict, records: list[
         for s in t.standings:
             recs = [by_card[entries[t.network][s.entry][sp].where] for sp in t.splits]
             ci = ("", "") if s.diff_ci is None else (_num(s.diff_ci[0]), _num(s.diff_ci[1]))
+            by_metric = {k.metric: _num(v) for k, v in zip(t.keys, s.values)}
+            calibration = t.scope == "calibration"
             w.writerow([csv_text(t.network), csv_text(t.scope),
-                        csv_text(" ".join(t.splits), 1000), s.rank, csv_text(s.entry),
-                        int(s.tied), *[_num(v) for v in s.values], *ci,
+                        csv_text(" ".join(t.splits), 1000), "" if calibration else s.rank,
+                        csv_text(s.entry), "" if calibration else int(s.tied),
+                        *[by_metric.get(m, "") for m in metrics], *(("", "") if calibration else ci),
                         csv_text(" ".join(clean(r["submission"]) for r in recs), 10**6),
                         clean(" ".join(r["predictions_hash"] for r in recs), 10**6),
                         csv_text(" ".join(clean(r["scorecard"]) for r in recs), 10**6),

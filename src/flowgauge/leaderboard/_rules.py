@@ -47,6 +47,11 @@ METRICS = {
         None, "restored_gap_pct", True, "mean |restored gap| [%]", None, absolute=True),
     "raw_gap_pct_mean": MetricSpec(
         ("raw_gap_pct", "mean"), "raw_gap_pct", True, "mean raw gap [%]", None),
+    # scorecard format 2 (profiles with grading)
+    "solved_share": MetricSpec(
+        ("solved_share",), "solved", False, "solved share", None),
+    "severity_mean": MetricSpec(
+        ("severity", "mean"), "severity", False, "mean severity", None),
 }
 
 DIRECTIONS = ("lower", "higher")
@@ -73,6 +78,12 @@ class Rules:
     profile: str | None
     published: tuple[str, ...]
     sha256: str
+    split_keys: tuple[tuple[str, tuple[RankKey, ...]], ...] = ()
+    allow_extra_data: bool = False
+
+    def keys_for(self, scope: str) -> tuple[RankKey, ...]:
+        """The keys of the table of ``scope`` ("all" or a split name)."""
+        return dict(self.split_keys).get(scope, self.keys)
 
 
 def load_rules(path: str | Path) -> Rules:
@@ -105,6 +116,8 @@ def parse_rules(data: bytes, *, where: str = "rules.toml") -> Rules:
         profile=scoring.get("profile"),
         published=tuple(doc.get("published", {}).get("splits", [])),
         sha256=sha256_hex(data),
+        split_keys=tuple((name, _keys(value, where)) for name, value in sorted(doc.get("split_keys", {}).items())),
+        allow_extra_data=bool(doc.get("entries", {}).get("allow_extra_data", False)),
     )
 
 
