@@ -40,7 +40,8 @@ def rank(board: Path, verify: bool, workers: int) -> None:
     def step(what: str, done: int, total: int) -> None:
         from ..leaderboard._text import terminal
         verb = "checking" if verify else "reading"
-        bar.update(task, description=f"{verb} {terminal(what, 40)}", completed=done, total=total)
+        bar.update(task, description=f"{verb} {terminal(what, 40)}", completed=done, total=total,
+                   refresh=True)
 
     try:
         with bar:
