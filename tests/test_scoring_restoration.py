@@ -1,12 +1,14 @@
 """The restoration power flow and its limit checks: a 3-bus case worked out by hand, and
 agreement with PYPOWER's runpf from the same setpoints on ieee118."""
 
+from dataclasses import replace
+
 import numpy as np
 import pytest
 
 from flowgauge.network import Network, load_network, to_ppc
-from flowgauge.scoring import (STRICT_PROFILE, CAUSES, bound_violation, generator_cost_per_h, optimality_gap_pct,
-                               restore)
+from flowgauge.scoring import (REACTIVE_LIMITS_PROFILE, STRICT_PROFILE, CAUSES, bound_violation, generator_cost_per_h,
+                               optimality_gap_pct, restore)
 
 
 def three_bus() -> Network:
@@ -77,6 +79,41 @@ def test_three_bus_case_worked_by_hand():
     assert r.violations["restored_voltage_pu"][2] == pytest.approx(0.03, abs=1e-9)
     assert r.violations["restored_thermal_pct"][2] > 39.0
     assert r.failed.tolist() == [True, True, True]
+
+
+def test_three_bus_generator_at_its_reactive_limit_worked_by_hand():
+    # The hand case above with generator 2 allowed at most 20 MVAr, no active power anywhere
+    # (pg = [0, 0], no MW load) and a 60 MVAr load at bus 3; setpoints 1.0 p.u. at buses 1 and 2.
+    net = replace(three_bus(), qmax_mvar=np.array([300.0, 20.0]))
+    pd, qd = np.zeros((1, 1)), np.array([[60.0]])
+    pg, vm = np.zeros((1, 2)), np.ones((1, 3))
+    # With no active injection anywhere the angles stay 0 (flat angles satisfy the active-power
+    # equations) and a lossless line of x = 0.1 p.u. carries V_i (V_i - V_j) / x from bus i.
+    # Before switching (bus 2 PV at 1.0): bus 3 is fed by two equal lines from 1.0 p.u.:
+    #   V3 (V3 - 1) / 0.05 = -0.6 -> V3^2 - V3 + 0.03 = 0 -> V3 = (1 + sqrt(0.88)) / 2 = 0.969042,
+    # and generator 2 sends 10 (1 - V3) = 0.30958 p.u. = 30.96 MVAr > 20: held at 20 MVAr, bus 2
+    # becomes PQ. After switching (bus 2 injects 0.2 p.u., bus 3 -0.6 p.u.):
+    #   10 V2 (2 V2 - 1 - V3) = 0.2   ->  2 V2^2 - V2 - V2 V3 = a = 0.02
+    #   10 V3 (2 V3 - 1 - V2) = -0.6  ->  2 V3^2 - V3 - V2 V3 = b = -0.06
+    # With s = V2 + V3 and d = V2 - V3, their difference is d (2s - 1) = a - b = 0.08 and their
+    # sum 2 (V2^2 + V3^2) - 2 V2 V3 - s = 1.5 d^2 + s^2 / 2 - s = a + b = -0.04, so
+    #   s = 1 + sqrt(1 - 2 (0.04 + 1.5 d^2)),   d = 0.08 / (2s - 1).
+    # From d = 0: s = 1.959166 -> d = 0.027413 -> s = 1.957990 -> d = 0.027435 -> s = 1.957988
+    # (settled to 1e-7), so V2 = (s + d) / 2 = 0.992712 and V3 = (s - d) / 2 = 0.965277.
+    # Bus 2 sits below its 1.0 setpoint, the side that keeps generator 2 at its maximum: settled.
+    # The reference generator sends 10 (1 - V2) + 10 (1 - V3) = 0.42012 p.u. = 42.01 MVAr.
+    r = restore(net, pd_mw=pd, qd_mvar=qd, pg_mw=pg, vm_pu=vm, profile=REACTIVE_LIMITS_PROFILE)
+    assert r.converged.tolist() == [True] and r.switched_generators.tolist() == [1]
+    np.testing.assert_allclose(r.vm_pu[0], [1.0, 0.992712, 0.965277], atol=2e-6)
+    np.testing.assert_allclose(r.qg_mvar[0], [42.0115, 20.0], atol=1e-3)
+    np.testing.assert_allclose(r.va_deg[0], [0.0, 0.0, 0.0], atol=1e-9)
+    # Every restored limit holds (voltages 0.95-1.05 and 0.9-1.1, line 1-3 carries 10 (1 - V3) =
+    # 34.7 MVAr on its 60 MVA rating): the sample passes.
+    assert not r.failed[0]
+    # The strict profile keeps bus 2 at its setpoint: generator 2 at 30.96 MVAr, 10.96 over.
+    s = restore(net, pd_mw=pd, qd_mvar=qd, pg_mw=pg, vm_pu=vm, profile=STRICT_PROFILE)
+    assert {c for c in CAUSES if s.causes[c][0]} == {"reactive"}
+    assert s.violations["restored_reactive_power_mvar"][0] == pytest.approx(10.958424, abs=1e-5)
 
 
 def test_restoration_matches_pypower_runpf_on_ieee118(rng):
