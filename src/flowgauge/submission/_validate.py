@@ -74,11 +74,13 @@ def check_predictions(source: str | os.PathLike | Predictions, split=None, *,
     report = validate_predictions(source, split, max_bytes=max_bytes)
     if not report.valid:
         raise InputError(report.message(), where=str(report.path) if report.path else "predictions")
-    if report.split is not None and getattr(report.split, "path", None) is not None:
-        # the split files must be what their manifest records, as `splits verify` checks them
-        # (IntegrityError, exit 3, naming the file and column)
+    path = getattr(report.split, "path", None) if report.split is not None else None
+    if path is not None and (Path(path) / "manifest.json").is_file():
+        # the split files read must be what their manifest records, as `splits verify` checks
+        # them (IntegrityError, exit 3, naming the file and column); a split built in memory
+        # has no files to check
         from ..splits import verify_split
-        verify_split(report.split.path)
+        verify_split(path)
     return report
 
 
