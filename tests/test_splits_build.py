@@ -11,6 +11,7 @@ import pyarrow.parquet as pq
 import pytest
 
 from flowgauge.cli import main
+from flowgauge.errors import InputError
 from flowgauge.network import load_network, to_ppc
 from flowgauge.splits import build_split, find_split, load_split, verify_split
 from flowgauge.splits._builder import partial_dir
@@ -55,7 +56,7 @@ def test_manifest_records_what_was_built(built):
     out, m = built
     net = load_network("ieee14")
     assert m["samples"] == 8 and m["seed"] == SEED and m["split"] == "test-id"
-    assert m["design"]["name"] == "level-local"
+    assert m["design"]["name"] == "spanning"
     assert m["elements"]["load_id"] == net.load_id.tolist()
     assert m["draws"] == 8 + sum(m["rejected"].values())
     assert set(m["solver"]) >= {"feasibility_tol", "max_iter"}
@@ -166,14 +167,28 @@ def test_build_refuses_a_finished_split_and_unknown_network(built, tmp_path, cap
     assert "nowhere: not a bundled network and no such file" in capsys.readouterr().err
 
 
-def test_out_of_distribution_build_counts_rejections_by_kind(tmp_path):
-    m = build_split("ieee30", "test-ood", samples=6, seed=3, out=tmp_path / "ood", chunk=3)
-    kinds = ("level-low", "level-high", "regional", "power-factor")
-    # PYPOWER's case30 cannot carry 1.25-1.40 times its base load (checked with runopf while
-    # designing): the high-level kind is rejected and counted, never dropped silently
-    assert all(k.split(": ")[0] in kinds for k in m["rejected"])
+def test_out_of_distribution_build_tags_kinds_and_unseen_regimes(tmp_path):
+    root = tmp_path / "ieee14"
+    build_split("ieee14", "train", samples=12, seed=3, out=root / "train", chunk=6)
+    m = build_split("ieee14", "test-ood", samples=6, seed=4, out=root / "test-ood", chunk=3)
+    s, train = load_split(root / "test-ood"), load_split(root / "train")
+    assert s.kind.tolist() == ["power-factor", "very-light", "unseen-regime"] * 2
+    # every unseen-regime sample's binding-limit set is absent from the training split, and the
+    # per-sample flag says so (recomputed here from the two reference tables)
+    in_train = np.isin(s.references.signature, train.references.signature)
+    assert not in_train[s.kind == "unseen-regime"].any()
+    assert np.array_equal(s.references.regime_seen_in_train, in_train)
+    assert m["train"]["split_hash"] == train.split_hash
+    assert m["coverage"]["kinds"] == {"power-factor": 2, "unseen-regime": 2, "very-light": 2}
+    assert all(k.split(": ")[0] in ("power-factor", "very-light", "unseen-regime", "loadability-infeasible")
+               for k in m["rejected"])
     assert m["draws"] == 6 + sum(m["rejected"].values())
-    assert m["design"]["parameters"]["region_a_bus_id"]
+
+
+def test_out_of_distribution_build_needs_the_training_split(tmp_path):
+    with pytest.raises(InputError, match="build train first beside this split"):
+        build_split("ieee14", "test-ood", samples=2, seed=4, out=tmp_path / "ieee14" / "test-ood")
+    assert not (tmp_path / "ieee14").exists() or not any((tmp_path / "ieee14").iterdir())
 
 
 def test_edge_build_records_margins_and_binding_limits(tmp_path):

@@ -17,7 +17,8 @@ from .. import __version__
 from .._io import atomic_write_bytes, canonical_json, hash_arrays
 from ..errors import InputError
 from ..network import Network, bundled_names, load_network, write_network_json
-from ._designs import design_for
+from ._coverage import coverage
+from ._designs import SPLIT_DESIGN, design_for
 from ._executors import run_tasks
 from ._manifest import FORMAT_NAME, FORMAT_VERSION, SPLIT_NAMES, network_hash, seal_manifest, write_manifest
 from ._store import (BINDING_SEP, INPUTS_FILE, MANIFEST_FILE, REFERENCES_FILE, inputs_table,
@@ -102,7 +103,7 @@ def _file_entry(path: str, table, with_solution: bool) -> dict[str, Any]:
 
 
 def _finish(out: Path, part: Path, net: Network, job: Job, split: str, samples: int,
-            data: dict, rejected: Counter, settings: dict, notes: str) -> dict[str, Any]:
+            data: dict, rejected: Counter, settings: dict, notes: str, train=None) -> dict[str, Any]:
     stage = part / "final"
     if stage.exists():
         shutil.rmtree(stage)
@@ -110,9 +111,13 @@ def _finish(out: Path, part: Path, net: Network, job: Job, split: str, samples: 
     sid = data["slot"]
     if not np.array_equal(sid, np.arange(samples)):
         raise RuntimeError("chunks do not cover the samples exactly")  # a bug, not a user error
-    t_in = inputs_table(sid, data["pd_mw"], data["qd_mvar"])
+    t_in = inputs_table(sid, data["pd_mw"], data["qd_mvar"], kind=data.get("kind"))
     ref_cols = dict(data)
     ref_cols["binding"] = [tuple(b.split(BINDING_SEP)) if b else () for b in data["binding"].tolist()]
+    seen = None
+    if train is not None and train.references is not None:
+        seen = np.isin(data["signature"].astype(str), train.references.signature.astype(str))
+        ref_cols["regime_seen_in_train"] = seen.astype(np.int64)
     t_ref = references_table(sid, ref_cols)
     write_table(t_in, stage / INPUTS_FILE)
     write_table(t_ref, stage / REFERENCES_FILE)
@@ -131,6 +136,9 @@ def _finish(out: Path, part: Path, net: Network, job: Job, split: str, samples: 
                   "references": _file_entry(REFERENCES_FILE, t_ref, True)},
         "rejected": dict(sorted(rejected.items())), "draws": samples + int(sum(rejected.values())),
         "reference_solve_seconds": _seconds_stats(data["solve_seconds"]), "notes": notes,
+        "coverage": coverage(data["signature"], ref_cols["binding"], data.get("kind"), seen),
+        **({} if seen is None else {"train": {"split_hash": train.split_hash,
+                                              "regimes": int(np.unique(train.references.signature).size)}}),
     })
     write_manifest(stage / MANIFEST_FILE, manifest)
     if out.exists():
@@ -144,11 +152,14 @@ def _finish(out: Path, part: Path, net: Network, job: Job, split: str, samples: 
 def build_split(network: str | Path | Network, split: str, *, samples: int, seed: int, out: str | Path,
                 workers: int = 1, scheduler: str | None = None, chunk: int = DEFAULT_CHUNK,
                 notes: str = "", progress: Callable[[BuildProgress], None] | None = None,
-                max_attempts: int = MAX_ATTEMPTS) -> dict[str, Any]:
+                max_attempts: int = MAX_ATTEMPTS, train=None) -> dict[str, Any]:
     """Build one split into the folder ``out`` and return its manifest.
 
     Finished chunks are kept in a hidden sibling folder of ``out``; a rerun with the same
     settings resumes from them. ``out`` appears only when everything is written.
+    ``train``: the training split (a folder or a loaded Split; default the sibling folder
+    ``train`` of ``out`` when it holds a finished split). Test splits record, per sample, whether
+    its regime occurs in it, and the out-of-distribution design draws unseen regimes from it.
     """
     if split not in SPLIT_NAMES:
         raise InputError(f"expected one of {', '.join(SPLIT_NAMES)}, got {split!r}", where="split")
@@ -158,7 +169,8 @@ def build_split(network: str | Path | Network, split: str, *, samples: int, seed
     net = network if isinstance(network, Network) else load_network(network)
     out = Path(out)
     _check_out(out)
-    job = Job(net=net, net_hash=network_hash(net), design=design_for(split, net), seed=seed,
+    train = _train_split(split, out, train)
+    job = Job(net=net, net_hash=network_hash(net), design=design_for(split, net, train), seed=seed,
               acceptance=tuple(sorted(ACCEPTANCE.items())), max_attempts=max_attempts)
     settings = solver_settings()
     part = partial_dir(out)
@@ -184,4 +196,21 @@ def build_split(network: str | Path | Network, split: str, *, samples: int, seed
             shutil.rmtree(part, ignore_errors=True)
         raise
     data, rejected = _assemble([done[r] for r in ranges])
-    return _finish(out, part, net, job, split, samples, data, rejected, settings, notes)
+    return _finish(out, part, net, job, split, samples, data, rejected, settings, notes, train)
+
+
+def _train_split(split: str, out: Path, train):
+    """The training split a test split refers to (None for training splits or when absent)."""
+    if not split.startswith("test-"):
+        return None
+    from ._load import load_split
+    if train is None:
+        sibling = out.parent / "train"
+        if not (sibling / MANIFEST_FILE).exists():
+            if SPLIT_DESIGN[split] == "outside":
+                raise InputError("the out-of-distribution design draws regimes that never occur in the "
+                                 "training split: build train first beside this split, or give --train",
+                                 where=str(out))
+            return None
+        train = sibling
+    return train if hasattr(train, "references") else load_split(Path(train))

@@ -206,13 +206,35 @@ class Edge:
         return Loading(net.pd_mw + (1.0 - m) * lam * d_pd, net.qd_mvar + (1.0 - m) * lam * d_qd, float(m))
 
 
-DESIGNS: dict[str, Callable[[], Any]] = {"level-local": LevelLocal, "shifted": Shifted, "edge": Edge}
-SPLIT_DESIGN = {"train": "level-local", "test-id": "level-local", "test-ood": "shifted", "test-edge": "edge"}
+def _spanning():
+    from ._spanning import Spanning
+    return Spanning()
 
 
-def design_for(split: str, net: Network | None = None):
-    """The design of ``split``; with ``net``, fitted to that network (level ranges placed)."""
+def _outside():
+    from ._spanning import Outside
+    return Outside()
+
+
+DESIGNS: dict[str, Callable[[], Any]] = {"level-local": LevelLocal, "shifted": Shifted, "edge": Edge,
+                                         "spanning": _spanning, "outside": _outside}
+# train and test-id span the feasible region (different seeds, so no shared draw); test-ood lies
+# outside what the training design produces; train-local is the narrow design around the base
+# case, kept so that a user can measure the narrow-to-wide generalisation gap.
+SPLIT_DESIGN = {"train": "spanning", "test-id": "spanning", "test-ood": "outside", "test-edge": "edge",
+                "train-local": "level-local"}
+
+
+def design_for(split: str, net: Network | None = None, train=None):
+    """The design of ``split``; with ``net``, fitted to that network (level ranges placed, the
+    spanning design's pilot solved). ``train``: the training split (a loaded Split), which the
+    out-of-distribution design needs for its unseen-regime draws."""
     if split not in SPLIT_DESIGN:
         raise InputError(f"expected one of {', '.join(SPLIT_DESIGN)}, got {split!r}", where="split")
     design = DESIGNS[SPLIT_DESIGN[split]]()
-    return design if net is None else design.fitted(net)
+    if net is None:
+        return design
+    design = design.fitted(net)
+    if hasattr(design, "with_train") and train is not None and train.references is not None:
+        design = design.with_train(train.references.signature, train.split_hash)
+    return design

@@ -14,7 +14,7 @@ import numpy as np
 from ..errors import InputError
 from ..network import Network, bundled_names, load_network
 from ._manifest import SPLIT_NAMES, network_hash, read_manifest
-from ._store import (MANIFEST_FILE, References, inputs_from_table,
+from ._store import (MANIFEST_FILE, References, inputs_from_table, kinds_from_table,
                      read_table, references_from_table)
 
 __all__ = ["Split", "splits_root", "list_splits", "find_split", "resolve_split", "load_split",
@@ -108,6 +108,7 @@ class Split:
     pd_mw: np.ndarray
     qd_mvar: np.ndarray
     references: References | None = field(default=None)
+    kind: np.ndarray | None = field(default=None)  # (S,) str: the kind of draw (splits since format 2)
 
     @property
     def name(self) -> str:
@@ -181,7 +182,9 @@ def load_split(network_or_path: str | Path, split: str | None = None, *, referen
     folder = resolve_split(network_or_path, split)
     manifest = read_manifest(folder / MANIFEST_FILE)
     inputs_path = folder / manifest["files"]["inputs"]["path"]
-    sample_id, pd_mw, qd_mvar = inputs_from_table(read_table(inputs_path), inputs_path)
+    table = read_table(inputs_path)
+    sample_id, pd_mw, qd_mvar = inputs_from_table(table, inputs_path)
+    kind = kinds_from_table(table)
     n_load = len(manifest["elements"]["load_id"])
     if pd_mw.shape != (manifest["samples"], n_load):
         raise InputError(f"expected pd_mw of shape ({manifest['samples']}, {n_load}) as the manifest says, "
@@ -191,4 +194,4 @@ def load_split(network_or_path: str | Path, split: str | None = None, *, referen
     if references and ref_path.exists():
         refs = references_from_table(read_table(ref_path), ref_path)
     return Split(path=folder, manifest=manifest, sample_id=sample_id, pd_mw=pd_mw, qd_mvar=qd_mvar,
-                 references=refs)
+                 references=refs, kind=kind)

@@ -21,7 +21,7 @@ __all__ = [
     "INPUTS_FILE", "REFERENCES_FILE", "MANIFEST_FILE", "STORED_DIGITS",
     "References", "round_array", "inputs_table", "references_table", "table_columns",
     "columns_hash", "solution_hash", "write_table", "read_table", "inputs_from_table",
-    "references_from_table", "BINDING_SEP",
+    "references_from_table", "kinds_from_table", "BINDING_SEP",
 ]
 
 INPUTS_FILE = "inputs.parquet"
@@ -66,6 +66,7 @@ class References:
     margin: np.ndarray
     binding: tuple
     signature: np.ndarray
+    regime_seen_in_train: np.ndarray | None = None  # (S,) bool; test splits built beside a train split
 
     def __getitem__(self, key: str):
         # dict-style access, e.g. refs["pg_mw"]
@@ -92,13 +93,17 @@ def _fixed(matrix: np.ndarray) -> pa.FixedSizeListArray:
     return pa.FixedSizeListArray.from_arrays(pa.array(m.ravel(), pa.float64()), m.shape[1])
 
 
-def inputs_table(sample_id: np.ndarray, pd_mw: np.ndarray, qd_mvar: np.ndarray) -> pa.Table:
-    """Inputs table: ``sample_id`` (S,), ``pd_mw``, ``qd_mvar`` (S, n_load) [MW], [MVAr]."""
-    return pa.table({
+def inputs_table(sample_id: np.ndarray, pd_mw: np.ndarray, qd_mvar: np.ndarray, kind=None) -> pa.Table:
+    """Inputs table: ``sample_id`` (S,), ``pd_mw``, ``qd_mvar`` (S, n_load) [MW], [MVAr], and
+    optionally ``kind`` (S,) str: which kind of draw of its design produced each sample."""
+    data = {
         "sample_id": pa.array(np.asarray(sample_id, np.int64)),
         "pd_mw": _fixed(round_array(pd_mw)),
         "qd_mvar": _fixed(round_array(qd_mvar)),
-    })
+    }
+    if kind is not None:
+        data["kind"] = pa.array([str(k) for k in kind], pa.string())
+    return pa.table(data)
 
 
 def references_table(sample_id: np.ndarray, cols: dict) -> pa.Table:
@@ -115,6 +120,9 @@ def references_table(sample_id: np.ndarray, cols: dict) -> pa.Table:
     data["signature"] = pa.array([str(s) for s in cols["signature"]], pa.string())
     order = ["sample_id", *_VECTOR_REF, "objective_per_h", "status", "iterations", "max_p_mismatch_mw",
              "max_q_mismatch_mvar", "max_limit_violation", "solve_seconds", "binding", "signature", "margin"]
+    if cols.get("regime_seen_in_train") is not None:  # test splits built beside a train split
+        data["regime_seen_in_train"] = pa.array(np.asarray(cols["regime_seen_in_train"], np.int64))
+        order.append("regime_seen_in_train")
     return pa.table({k: data[k] for k in order})
 
 
@@ -181,6 +189,13 @@ def inputs_from_table(table: pa.Table, path: Path) -> tuple[np.ndarray, np.ndarr
             _column_array(table.column("qd_mvar"), "qd_mvar"))
 
 
+def kinds_from_table(table: pa.Table) -> np.ndarray | None:
+    """The inputs' ``kind`` column (S,) str, or None for splits written without it."""
+    if "kind" not in table.column_names:
+        return None
+    return _column_array(table.column("kind"), "kind").astype(str)
+
+
 def references_from_table(table: pa.Table, path: Path) -> References:
     names = ("sample_id", *_VECTOR_REF, "objective_per_h", "status", "iterations", "max_p_mismatch_mw",
              "max_q_mismatch_mvar", "max_limit_violation", "solve_seconds", "binding", "signature", "margin")
@@ -192,4 +207,6 @@ def references_from_table(table: pa.Table, path: Path) -> References:
         objective=c["objective_per_h"], status=c["status"].astype(str), iterations=c["iterations"],
         max_p_mismatch_mw=c["max_p_mismatch_mw"], max_q_mismatch_mvar=c["max_q_mismatch_mvar"],
         max_limit_violation=c["max_limit_violation"], solve_seconds=c["solve_seconds"],
-        margin=c["margin"], binding=binding, signature=c["signature"].astype(str))
+        margin=c["margin"], binding=binding, signature=c["signature"].astype(str),
+        regime_seen_in_train=(None if "regime_seen_in_train" not in table.column_names else
+                              _column_array(table.column("regime_seen_in_train"), "regime_seen_in_train") == 1))

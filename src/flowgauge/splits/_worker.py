@@ -89,12 +89,17 @@ def reject_reason(res, acceptance: tuple) -> str | None:
 def _solve_slot(job: Job, tools, slot: int, rejected: Counter) -> tuple[Loading, Any]:
     for attempt in range(job.max_attempts):
         rng = sample_rng(job.seed, slot, attempt)
-        loading = job.design.draw(job.net, rng, tools)
+        if getattr(job.design, "uses_slot", False):  # designs that vary their kind by slot
+            loading = job.design.draw(job.net, rng, tools, slot=slot)
+        else:
+            loading = job.design.draw(job.net, rng, tools)
         if isinstance(loading, str):
-            rejected[loading] += 1
+            rejected[f"{loading}"] += 1
             continue
         res = tools.solve(loading.pd_mw, loading.qd_mvar)
         reason = reject_reason(res, job.acceptance)
+        if reason is None and hasattr(job.design, "check"):
+            reason = job.design.check(loading, res)
         if reason is None:
             return loading, res
         rejected[f"{loading.kind}: {reason}" if loading.kind else reason] += 1
@@ -115,6 +120,7 @@ def solve_chunk(job: Job, start: int, stop: int) -> dict[str, np.ndarray]:
         "slot": np.arange(start, stop, dtype=np.int64),
         "pd_mw": np.stack([l.pd_mw for l in loads]), "qd_mvar": np.stack([l.qd_mvar for l in loads]),
         "margin": np.array([l.margin for l in loads], float),
+        "kind": np.array([l.kind or job.design.name for l in loads], dtype=str),
         "pg_mw": stack("pg_mw"), "qg_mvar": stack("qg_mvar"), "vm_pu": stack("vm_pu"), "va_deg": stack("va_deg"),
         "objective_per_h": stack("objective"), "iterations": np.array([int(r.iterations) for r in res], np.int64),
         "max_p_mismatch_mw": stack("max_p_mismatch_mw"), "max_q_mismatch_mvar": stack("max_q_mismatch_mvar"),

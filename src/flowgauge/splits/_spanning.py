@@ -1,0 +1,236 @@
+"""The spanning design: loadings spread over the whole feasible region of a network, not a box
+around its base case, and the design of loadings outside what it produces. docs/splits.md
+argues their coverage.
+
+A **plain draw** picks a direction in load space and a distance along it:
+
+* each load's active power weight is its base power (a tenth of the mean base load for a load
+  with none) times an independent Gamma(k, 1/k) factor; the shape k is drawn per sample,
+  log-uniform in ``concentration``: a small k gives loadings where a few loads dominate and the
+  others fall toward zero, a large k loadings close to the base pattern;
+* each load's power factor is drawn in ``power_factor`` (lagging; a load whose base reactive
+  power is negative keeps that sign): common practice puts load power factors between 0.85 and
+  1.0;
+* the direction's feasible extent comes from the maximum-loadability solver, from zero load
+  along the direction; the loading is a share of that extent drawn uniformly in ``fraction``,
+  which covers light loadings, the interior and the approach to the boundary (the last half
+  percent is left to the edge split).
+
+A **steered draw** moves toward rarely seen binding-limit regimes. When the design is fitted to
+a network it solves a pilot of plain draws (a fixed seed of its own, so every split of the
+network shares it) and weights each pilot loading by the inverse of how often its regime
+occurs in the pilot. A steered draw picks a pilot loading by that weight and takes a random
+local step from it: every load weight multiplied by exp(``step_sigma`` N(0, 1)), power factors
+and the share of the extent moved by small normal steps. A share ``steer_share`` of the samples
+is steered (sample slots with ``slot % 2 == 1``).
+
+Every draw depends only on (seed, slot, attempt) and the pilot, so the worker count never
+changes a split.
+"""
+
+from __future__ import annotations
+
+from collections import Counter
+from dataclasses import dataclass, field, replace
+from typing import Any, ClassVar
+
+import numpy as np
+
+from .._io import hash_arrays
+from ..errors import InputError
+from ..network import Network
+from ._designs import Loading, sample_rng
+
+__all__ = ["Spanning", "Outside", "regime_families", "FAMILY_OF_LIMIT"]
+
+# binding-limit label suffix -> limit family (labels: "<bus|gen|branch>:<id>:<limit>")
+FAMILY_OF_LIMIT = {"vmin": "voltage", "vmax": "voltage", "pmin": "active_power", "pmax": "active_power",
+                   "qmin": "reactive_power", "qmax": "reactive_power", "rate_from": "thermal",
+                   "rate_to": "thermal", "angmin": "angle", "angmax": "angle"}
+
+
+_PILOTS: dict = {}  # pilot solves by (network hash, pilot settings), within one process
+
+
+def regime_families(binding) -> set[str]:
+    """The limit families among a sample's binding-limit labels."""
+    return {FAMILY_OF_LIMIT[b.rsplit(":", 1)[-1]] for b in binding if b.rsplit(":", 1)[-1] in FAMILY_OF_LIMIT}
+
+
+def _loguniform(rng, lo_hi):
+    return float(np.exp(rng.uniform(np.log(lo_hi[0]), np.log(lo_hi[1]))))
+
+
+def _base_weights(net: Network) -> np.ndarray:
+    p = np.abs(net.pd_mw)
+    floor = 0.1 * float(p.mean()) if p.size and p.mean() > 0 else 1.0
+    return np.where(p > 0, p, floor)
+
+
+def _reactive(net: Network, pd: np.ndarray, pf: np.ndarray, leading=None) -> np.ndarray:
+    """Reactive power of loads ``pd`` at power factors ``pf``: lagging (the sign of the base
+    reactive power), except where ``leading`` is True (the opposite sign)."""
+    sign = np.where(net.qd_mvar < 0, -1.0, 1.0)
+    if leading is not None:
+        sign = np.where(leading, -sign, sign)
+    return pd * np.tan(np.arccos(np.clip(pf, 1e-3, 1.0))) * sign
+
+
+@dataclass(frozen=True, eq=False)
+class Spanning:
+    """Directions in load space and distances along them over the feasible region (module
+    docstring); ``pilot`` is filled by :meth:`fitted`."""
+
+    uses_slot: ClassVar[bool] = True
+    name: str = "spanning"
+    concentration: tuple[float, float] = (0.3, 10.0)
+    power_factor: tuple[float, float] = (0.85, 1.0)
+    fraction: tuple[float, float] = (0.05, 0.995)
+    steer_share: float = 0.5
+    pilot_draws: int = 200
+    pilot_seed: int = 20261202
+    step_sigma: float = 0.35
+    pf_step: float = 0.02
+    fraction_step: float = 0.05
+    pilot: dict | None = field(default=None, repr=False)
+
+    # -- the plain draw -------------------------------------------------------------------
+    def _direction(self, net: Network, rng) -> tuple[np.ndarray, np.ndarray]:
+        k = _loguniform(rng, self.concentration)
+        w = _base_weights(net) * rng.gamma(k, 1.0 / k, net.n_load)
+        pf = rng.uniform(self.power_factor[0], self.power_factor[1], net.n_load)
+        return w, pf
+
+    def _along(self, net: Network, w, pf, frac, solver, kind: str, leading=None) -> Loading | str:
+        total = float(np.sum(np.abs(net.pd_mw))) or 1.0
+        d_pd = w * (total / float(np.sum(w)))
+        d_qd = _reactive(net, d_pd, pf, leading)
+        lam = solver.max_loadability(np.zeros(net.n_load), np.zeros(net.n_load), d_pd, d_qd)
+        if isinstance(lam, str):
+            return lam
+        return Loading(frac * lam * d_pd, frac * lam * d_qd, kind=kind)
+
+    def plain(self, net: Network, rng, solver) -> tuple[Loading | str, tuple]:
+        w, pf = self._direction(net, rng)
+        frac = float(rng.uniform(*self.fraction))
+        return self._along(net, w, pf, frac, solver, "spanning"), (w, pf, frac)
+
+    # -- the pilot and the steered draw ---------------------------------------------------
+    def fitted(self, net: Network, solver=None) -> "Spanning":
+        if self.pilot is not None:
+            return self
+        from ._manifest import network_hash
+        key = (network_hash(net), self.pilot_draws, self.pilot_seed, self.concentration, self.power_factor,
+               self.fraction)
+        if key not in _PILOTS:  # every split of a network in one process shares its pilot
+            _PILOTS[key] = self._pilot(net, solver)
+        return replace(self, pilot=_PILOTS[key])
+
+    def _pilot(self, net: Network, solver) -> dict:
+        from ._worker import _Tools
+        tools = solver or _Tools(net)
+        ws, pfs, fracs, regimes = [], [], [], []
+        for slot in range(self.pilot_draws):
+            loading, (w, pf, frac) = self.plain(net, sample_rng(self.pilot_seed, slot, 0), tools)
+            if isinstance(loading, str):
+                continue
+            res = tools.solve(loading.pd_mw, loading.qd_mvar)
+            if res.status != "converged":
+                continue
+            ws.append(w), pfs.append(pf), fracs.append(frac), regimes.append(str(res.signature))
+        if not ws:
+            raise InputError(f"none of the {self.pilot_draws} pilot draws of the spanning design had a feasible "
+                             "AC optimal power flow", where=f"network {net.name!r}")
+        count = Counter(regimes)
+        weight = np.array([1.0 / count[r] for r in regimes])
+        return {"weights": np.array(ws), "power_factor": np.array(pfs), "fraction": np.array(fracs),
+                "regime": np.array(regimes), "probability": weight / weight.sum()}
+
+    def pilot_summary(self) -> dict[str, Any]:
+        p = self.pilot or {}
+        if not p:
+            return {}
+        return {"pilot_accepted": int(p["fraction"].size), "pilot_regimes": int(np.unique(p["regime"]).size),
+                "pilot_hash": hash_arrays({k: p[k] for k in ("weights", "power_factor", "fraction", "regime")})}
+
+    def steered(self, net: Network, rng, solver, probability=None, kind: str = "steered") -> Loading | str:
+        p = self.pilot
+        prob = p["probability"] if probability is None else probability
+        j = int(rng.choice(prob.size, p=prob))
+        w = p["weights"][j] * np.exp(self.step_sigma * rng.standard_normal(net.n_load))
+        pf = np.clip(p["power_factor"][j] + self.pf_step * rng.standard_normal(net.n_load), *self.power_factor)
+        frac = float(np.clip(p["fraction"][j] + self.fraction_step * rng.standard_normal(), *self.fraction))
+        return self._along(net, w, pf, frac, solver, kind)
+
+    def parameters(self, net: Network) -> dict[str, Any]:
+        return {"concentration": list(self.concentration), "power_factor": list(self.power_factor),
+                "fraction": list(self.fraction), "steer_share": self.steer_share,
+                "steered_slots": "odd", "pilot_draws": self.pilot_draws, "pilot_seed": self.pilot_seed,
+                "step_sigma": self.step_sigma, "pf_step": self.pf_step, "fraction_step": self.fraction_step,
+                "start": "zero load", **self.pilot_summary()}
+
+    def draw(self, net: Network, rng, solver=None, slot: int = 0) -> Loading | str:
+        if self.steer_share > 0 and slot % 2 == 1 and self.pilot is not None:
+            return self.steered(net, rng, solver)
+        return self.plain(net, rng, solver)[0]
+
+
+_OUTSIDE_KINDS = ("power-factor", "very-light", "unseen-regime")
+
+
+@dataclass(frozen=True, eq=False)
+class Outside:
+    """Loadings the spanning design does not produce, one kind per sample slot in turn:
+
+    - ``power-factor``: a spanning direction with every load's power factor drawn outside the
+      training range: lagging in ``low_power_factor`` or leading in ``leading_power_factor``;
+    - ``very-light``: a spanning direction at a share of its extent below the training range;
+    - ``unseen-regime``: a steered draw kept only when its binding-limit regime never occurs in
+      the training split (``train_regimes``), the pilot weighted toward regimes absent from it.
+    """
+
+    uses_slot: ClassVar[bool] = True
+    name: str = "outside"
+    spanning: Spanning = field(default_factory=Spanning)
+    low_power_factor: tuple[float, float] = (0.6, 0.8)
+    leading_power_factor: tuple[float, float] = (0.9, 0.99)
+    very_light: tuple[float, float] = (0.005, 0.04)
+    train_regimes: frozenset = frozenset()
+    train_split_hash: str = ""
+
+    def fitted(self, net: Network, solver=None) -> "Outside":
+        return replace(self, spanning=self.spanning.fitted(net, solver))
+
+    def with_train(self, regimes, split_hash: str) -> "Outside":
+        return replace(self, train_regimes=frozenset(str(r) for r in regimes), train_split_hash=split_hash)
+
+    def parameters(self, net: Network) -> dict[str, Any]:
+        return {"kinds": list(_OUTSIDE_KINDS), "kind_of_slot": "slot % 3 in kinds order",
+                "low_power_factor": list(self.low_power_factor),
+                "leading_power_factor": list(self.leading_power_factor), "very_light": list(self.very_light),
+                "train_split_hash": self.train_split_hash, "train_regimes": len(self.train_regimes),
+                "spanning": self.spanning.parameters(net)}
+
+    def draw(self, net: Network, rng, solver=None, slot: int = 0) -> Loading | str:
+        kind = _OUTSIDE_KINDS[slot % 3]
+        s = self.spanning
+        if kind == "unseen-regime":
+            if not self.train_regimes:
+                raise InputError("the out-of-distribution design needs the training split's regimes: build "
+                                 "train first, beside this split (or pass train=)", where="split test-ood")
+            unseen = ~np.isin(s.pilot["regime"], list(self.train_regimes))
+            prob = s.pilot["probability"] * np.where(unseen, 20.0, 1.0)
+            return s.steered(net, rng, solver, prob / prob.sum(), kind="unseen-regime")
+        w, pf = s._direction(net, rng)
+        if kind == "power-factor":
+            lead = rng.random(net.n_load) < 0.5
+            pf = np.where(lead, rng.uniform(*self.leading_power_factor, net.n_load),
+                          rng.uniform(*self.low_power_factor, net.n_load))
+            return s._along(net, w, pf, float(rng.uniform(*s.fraction)), solver, kind, leading=lead)
+        return s._along(net, w, pf, float(rng.uniform(*self.very_light)), solver, kind)
+
+    def check(self, loading: Loading, res) -> str | None:
+        """Rejection reason after the reference is solved (None: keep)."""
+        if loading.kind == "unseen-regime" and str(res.signature) in self.train_regimes:
+            return "regime-seen-in-train"
+        return None
