@@ -244,3 +244,13 @@ def test_hard_killed_build_resumes_and_matches_the_frozen_split(tmp_path):
     np.testing.assert_array_equal(s.pd_mw, frozen.pd_mw[:20])
     np.testing.assert_array_equal(s.qd_mvar, frozen.qd_mvar[:20])
     np.testing.assert_allclose(s.references.objective, frozen.references.objective[:20], rtol=1e-6)
+
+
+def test_splits_of_one_seed_share_no_draw(tmp_path):
+    # the split name and design enter the seed derivation: train and test-id built with the same
+    # seed (same spanning design) have no loading in common
+    a = build_split("ieee14", "train", samples=4, seed=7, out=tmp_path / "a" / "train", chunk=4)
+    b = build_split("ieee14", "test-id", samples=4, seed=7, out=tmp_path / "b" / "test-id", chunk=4)
+    assert a["seed_rule"] == b["seed_rule"] == "split-design-slot-attempt"
+    pa_, pb = load_split(tmp_path / "a" / "train").pd_mw, load_split(tmp_path / "b" / "test-id").pd_mw
+    assert not any(np.allclose(x, y) for x in pa_ for y in pb)

@@ -18,7 +18,7 @@ from .._io import atomic_write_bytes, canonical_json, hash_arrays
 from ..errors import InputError
 from ..network import Network, bundled_names, load_network, write_network_json
 from ._coverage import coverage
-from ._designs import SPLIT_DESIGN, design_for
+from ._designs import SEED_RULE, SPLIT_DESIGN, design_for, draw_stream
 from ._executors import run_tasks
 from ._manifest import FORMAT_NAME, FORMAT_VERSION, SPLIT_NAMES, network_hash, seal_manifest, write_manifest
 from ._store import (BINDING_SEP, INPUTS_FILE, MANIFEST_FILE, REFERENCES_FILE, inputs_table,
@@ -50,7 +50,7 @@ def _chunk_ranges(samples: int, chunk: int) -> list[tuple[int, int]]:
 
 
 def _fingerprint(job: Job, settings: dict, chunk: int) -> dict[str, Any]:
-    return {"network_hash": job.net_hash, "design": job.design.name,
+    return {"network_hash": job.net_hash, "design": job.design.name, "stream": list(job.stream),
             "parameters": job.design.parameters(job.net), "seed": job.seed, "solver": settings,
             "acceptance": dict(job.acceptance), "max_attempts": job.max_attempts, "chunk": chunk,
             "flowgauge_version": __version__}
@@ -128,7 +128,7 @@ def _finish(out: Path, part: Path, net: Network, job: Job, split: str, samples: 
     manifest = seal_manifest({
         "format": FORMAT_NAME, "format_version": FORMAT_VERSION, "network": network_info,
         "split": split, "design": {"name": job.design.name, "parameters": job.design.parameters(net)},
-        "seed": job.seed, "samples": samples,
+        "seed": job.seed, "seed_rule": SEED_RULE, "samples": samples,
         "elements": {"bus_id": net.bus_id.tolist(), "gen_id": net.gen_id.tolist(),
                      "load_id": net.load_id.tolist(), "branch_id": net.branch_id.tolist()},
         "flowgauge_version": __version__, "solver": settings, "acceptance": dict(job.acceptance),
@@ -170,8 +170,10 @@ def build_split(network: str | Path | Network, split: str, *, samples: int, seed
     out = Path(out)
     _check_out(out)
     train = _train_split(split, out, train)
-    job = Job(net=net, net_hash=network_hash(net), design=design_for(split, net, train), seed=seed,
-              acceptance=tuple(sorted(ACCEPTANCE.items())), max_attempts=max_attempts)
+    design = design_for(split, net, train)
+    job = Job(net=net, net_hash=network_hash(net), design=design, seed=seed,
+              acceptance=tuple(sorted(ACCEPTANCE.items())), max_attempts=max_attempts,
+              stream=draw_stream(split, design.name))
     settings = solver_settings()
     part = partial_dir(out)
     chunks_dir = _prepare_partial(part, _fingerprint(job, settings, chunk))

@@ -17,7 +17,7 @@ from ..network import Network
 from ._graph import two_regions
 
 __all__ = ["Loading", "LevelLocal", "Shifted", "Edge", "DESIGNS", "SPLIT_DESIGN", "design_for",
-           "sample_rng"]
+           "sample_rng", "draw_stream", "SEED_RULE"]
 
 
 @dataclass(frozen=True)
@@ -31,10 +31,25 @@ class Loading:
     kind: str = ""  # which branch of a mixed design drew it (prefixes rejection reasons)
 
 
-def sample_rng(seed: int, slot: int, attempt: int) -> np.random.Generator:
-    """The generator of one draw: depends only on (seed, sample slot, attempt), so chunking and
-    worker count never change a split."""
-    return np.random.Generator(np.random.PCG64(np.random.SeedSequence(seed, spawn_key=(slot, attempt))))
+def sample_rng(seed: int, slot: int, attempt: int, stream: tuple[int, ...] = ()) -> np.random.Generator:
+    """The generator of one draw: depends only on (seed, stream, sample slot, attempt), so
+    chunking and worker count never change a split. ``stream`` (see :func:`draw_stream`) keeps
+    splits of different names or designs apart even when they are given the same seed."""
+    key = (*stream, slot, attempt)
+    return np.random.Generator(np.random.PCG64(np.random.SeedSequence(seed, spawn_key=key)))
+
+
+# How draws are seeded, recorded in every manifest as ``seed_rule``. Manifests without it were
+# built with "slot-attempt": (seed, slot, attempt) only, whatever the split's name.
+SEED_RULE = "split-design-slot-attempt"
+
+
+def draw_stream(split: str, design: str) -> tuple[int, int]:
+    """Two 32-bit words from the SHA-256 of ``"<split>/<design>"``: the split's own stream of
+    draws, so that ``train`` and ``test-id`` built with one seed share no draw."""
+    import hashlib
+    h = hashlib.sha256(f"{split}/{design}".encode("utf-8")).digest()
+    return int.from_bytes(h[:4], "big"), int.from_bytes(h[4:8], "big")
 
 
 def _uniform(rng: np.random.Generator, lo_hi: tuple[float, float], size=None):

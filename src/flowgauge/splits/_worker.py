@@ -39,6 +39,7 @@ class Job:
     seed: int
     acceptance: tuple  # ((name, tolerance), ...)
     max_attempts: int = MAX_ATTEMPTS
+    stream: tuple = ()  # the split's stream of draws (_designs.draw_stream)
 
 
 class _Tools:
@@ -88,7 +89,7 @@ def reject_reason(res, acceptance: tuple) -> str | None:
 
 def _solve_slot(job: Job, tools, slot: int, rejected: Counter) -> tuple[Loading, Any]:
     for attempt in range(job.max_attempts):
-        rng = sample_rng(job.seed, slot, attempt)
+        rng = sample_rng(job.seed, slot, attempt, job.stream)
         if getattr(job.design, "uses_slot", False):  # designs that vary their kind by slot
             loading = job.design.draw(job.net, rng, tools, slot=slot)
         else:
