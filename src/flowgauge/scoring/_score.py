@@ -187,6 +187,48 @@ def _graded_aggregates(table: pd.DataFrame, restoration, profile) -> dict:
     }
 
 
+def _group_aggregates(table: pd.DataFrame, mask: np.ndarray, profile) -> dict:
+    """The main aggregates over the samples in ``mask`` (breakdowns by regime and kind), from
+    the per-sample table alone: counts, failure rate and causes, gaps, severity, the solved
+    share and both curves."""
+    t = table[mask]
+    n = int(mask.sum())
+    g = profile.grading
+    failed = t["restoration_failed"].to_numpy(bool)
+    hard = (t["cause_diverged"] | t["cause_switching"]).to_numpy(bool)
+    ratio = np.nan_to_num(t["tolerance_ratio"].to_numpy(float), nan=0.0)
+    sev = t["severity"].to_numpy(float)
+    multiples = list(g["tolerance_multiples"])
+    thresholds = list(g["solved_thresholds_pct"])
+    causes = [c[len("cause_"):] for c in t.columns if c.startswith("cause_")]
+    return {
+        "samples": n,
+        "restoration_failure_rate": float(failed.mean()) if n else None,
+        "restoration_failure_causes": {c: float(t[f"cause_{c}"].mean()) if n else None for c in causes},
+        "raw_gap_pct": summary_stats(t["raw_gap_pct"].to_numpy()),
+        "restored_gap_pct": summary_stats(t["restored_gap_pct"].to_numpy()),
+        "severity": {"mean": float(sev.mean()), "p95": float(np.percentile(sev, 95)), "max": float(sev.max())}
+        if n else None,
+        "solved_share": float(t["solved"].mean()) if n else None,
+        "solved_curve": {"thresholds_pct": thresholds, "share": [float(x) for x in solved_shares(
+            failed, t["restored_gap_pct"].to_numpy(float), thresholds)] if n else None},
+        "tolerance_curve": {"multiples": multiples, "failure_rate": [float(x) for x in (
+            hard[None, :] | (ratio[None, :] > np.asarray(multiples)[:, None])).mean(axis=1)] if n else None},
+    }
+
+
+def _breakdowns(table: pd.DataFrame, profile, regime_seen_in_train, kind) -> dict:
+    out = {}
+    if regime_seen_in_train is not None:
+        seen = np.asarray(regime_seen_in_train, bool)
+        out["by_regime_seen_in_train"] = {"seen": _group_aggregates(table, seen, profile),
+                                          "unseen": _group_aggregates(table, ~seen, profile)}
+    if kind is not None:
+        k = np.asarray(kind).astype(str)
+        out["by_kind"] = {name: _group_aggregates(table, k == name, profile) for name in sorted(set(k.tolist()))}
+    return out
+
+
 def _header(split, preds, profile: ScoringProfile) -> dict[str, Any]:
     model = preds.header.get("model") if isinstance(preds.header, dict) else None
     return {
@@ -203,13 +245,16 @@ def _header(split, preds, profile: ScoringProfile) -> dict[str, Any]:
 def score_arrays(net: Network, *, sample_id, pd_mw, qd_mvar, reference_cost_per_h, pg_mw, vm_pu, va_deg=None,
                  qg_mvar=None, inference_ms=None, reference_solve_ms: float | None = None,
                  profile: str | ScoringProfile | None = None, workers: int = 1, scheduler: str | None = None,
-                 progress: Callable[[int, int], None] | None = None) -> tuple[dict, pd.DataFrame]:
+                 progress: Callable[[int, int], None] | None = None, regime_seen_in_train=None,
+                 kind=None) -> tuple[dict, pd.DataFrame]:
     """The scorer's core on arrays already checked and aligned, rows sorted by ``sample_id``.
 
     ``pd_mw``, ``qd_mvar`` (S, n_load) [MW, MVAr]; ``reference_cost_per_h`` (S,) [$/h];
     ``pg_mw`` (S, n_gen) [MW]; ``vm_pu`` (S, n_bus) [p.u.]; optional ``va_deg`` (S, n_bus) [deg],
     ``qg_mvar`` (S, n_gen) [MVAr], ``inference_ms`` (S,) [ms] (NaN: not reported);
-    ``reference_solve_ms``: the reference solver's median time per sample [ms].
+    ``reference_solve_ms``: the reference solver's median time per sample [ms];
+    ``regime_seen_in_train`` (S,) bool and ``kind`` (S,) str, optional: with a grading profile,
+    the aggregates are also broken down by them (``by_regime_seen_in_train``, ``by_kind``).
     Returns (aggregates, per-sample table).
     """
     if isinstance(workers, bool) or not isinstance(workers, (int, np.integer)) or workers < 1:
@@ -263,6 +308,7 @@ def score_arrays(net: Network, *, sample_id, pd_mw, qd_mvar, reference_cost_per_
         limit = float(prof.grading["solved_threshold_pct"])
         table["solved"] = ~rest.failed & (np.abs(np.nan_to_num(restored_gap, nan=np.inf)) <= limit)
         aggregates.update(_graded_aggregates(table, rest, prof))
+        aggregates.update(_breakdowns(table, prof, regime_seen_in_train, kind))
     return aggregates, table
 
 
@@ -297,5 +343,8 @@ def score(predictions, split=None, *, profile: str | ScoringProfile | None = Non
         reference_cost_per_h=np.asarray(split.references.objective, float)[order],
         pg_mw=pick(preds.pg_mw), vm_pu=pick(preds.vm_pu), va_deg=pick(preds.va_deg), qg_mvar=pick(preds.qg_mvar),
         inference_ms=pick(preds.inference_ms), reference_solve_ms=_reference_ms(split), profile=prof,
-        workers=workers, scheduler=scheduler, progress=progress)
+        workers=workers, scheduler=scheduler, progress=progress,
+        regime_seen_in_train=None if split.references.regime_seen_in_train is None
+        else np.asarray(split.references.regime_seen_in_train)[order],
+        kind=None if getattr(split, "kind", None) is None else np.asarray(split.kind)[order])
     return Scorecard(header=_header(split, preds, prof), aggregates=aggregates, per_sample=table)
