@@ -17,15 +17,19 @@ from pathlib import Path
 from flowgauge.splits import build_split, splits_root, verify_split
 
 NETWORKS = ["demo", "ieee14", "ieee30", "ieee57", "ieee118", "ieee300"]
-SPLITS = ["test-id", "test-ood", "test-edge", "train"]
-SEEDS = {"train": 1001, "test-id": 2002, "test-ood": 3003, "test-edge": 4004}
-COUNTS = {"test-id": 500, "test-ood": 500, "test-edge": 200, "train": 2000}
+# train first: test splits record which of their regimes occur in it, and test-ood draws regimes
+# that never do
+SPLITS = ["train", "test-id", "test-ood", "test-edge", "train-local"]
+SEEDS = {"train": 1001, "test-id": 2002, "test-ood": 3003, "test-edge": 4004, "train-local": 5005}
+COUNTS = {"test-id": 500, "test-ood": 500, "test-edge": 200, "train": 2000, "train-local": 2000}
 LARGE_TRAIN = {"ieee118": 1000, "ieee300": 1000}
+# test-ood keeps only regimes unseen in train for a third of its samples: allow more draws per slot
+MAX_ATTEMPTS = {"test-ood": 80}
 FILES = ("inputs.parquet", "references.parquet", "manifest.json")
 
 
 def planned(network: str, split: str) -> int:
-    if split == "train" and network in LARGE_TRAIN:
+    if split in ("train", "train-local") and network in LARGE_TRAIN:
         return LARGE_TRAIN[network]
     return COUNTS[split]
 
@@ -79,7 +83,7 @@ def main(argv: list[str] | None = None) -> int:
                 notes = (f"frozen with {n} samples instead of the planned {n_plan}: {args.reason}").strip()
             t0 = time.perf_counter()
             m = build_split(network, split, samples=n, seed=SEEDS[split], out=out, workers=args.workers,
-                            chunk=args.chunk, notes=notes,
+                            chunk=args.chunk, notes=notes, max_attempts=MAX_ATTEMPTS.get(split, 25),
                             progress=lambda p, s=split: print(f"{network}/{s}: {p.solved}/{p.total} solved, "
                                                               f"{p.rejected} rejected", flush=True))
             dt = time.perf_counter() - t0

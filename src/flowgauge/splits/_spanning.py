@@ -11,10 +11,14 @@ A **plain draw** picks a direction in load space and a distance along it:
 * each load's power factor is drawn in ``power_factor`` (lagging; a load whose base reactive
   power is negative keeps that sign): common practice puts load power factors between 0.85 and
   1.0;
-* the direction's feasible extent comes from the maximum-loadability solver, from zero load
-  along the direction; the loading is a share of that extent drawn uniformly in ``fraction``,
-  which covers light loadings, the interior and the approach to the boundary (the last half
-  percent is left to the edge split).
+* the direction's feasible extent comes from the maximum-loadability solver, started at
+  ``start_share`` of the base total load along the direction; the loading is a share of that
+  extent drawn uniformly in ``fraction``, which covers light loadings, the interior and the
+  approach to the boundary (the last half percent is left to the edge split). The lower end of
+  ``fraction`` is fitted per network (:meth:`Spanning.fitted`): the lightest share, among
+  0.05, 0.1, 0.2, 0.3 and 0.4, at which the base load pattern has a feasible AC optimal power
+  flow. Some networks cannot carry light loadings: their line charging raises voltages beyond
+  what the generators' reactive ranges can absorb.
 
 A **steered draw** moves toward rarely seen binding-limit regimes. When the design is fitted to
 a network it solves a pilot of plain draws (a fixed seed of its own, so every split of the
@@ -49,7 +53,8 @@ FAMILY_OF_LIMIT = {"vmin": "voltage", "vmax": "voltage", "pmin": "active_power",
                    "rate_to": "thermal", "angmin": "angle", "angmax": "angle"}
 
 
-_PILOTS: dict = {}  # pilot solves by (network hash, pilot settings), within one process
+_PILOTS: dict = {}  # fitted fraction and pilot by (network hash, settings), within one process
+LIGHT_SHARES = (0.05, 0.1, 0.2, 0.3, 0.4)
 
 
 def regime_families(binding) -> set[str]:
@@ -86,6 +91,7 @@ class Spanning:
     concentration: tuple[float, float] = (0.3, 10.0)
     power_factor: tuple[float, float] = (0.85, 1.0)
     fraction: tuple[float, float] = (0.05, 0.995)
+    start_share: float = 0.5
     steer_share: float = 0.5
     pilot_draws: int = 200
     pilot_seed: int = 20261202
@@ -103,12 +109,16 @@ class Spanning:
 
     def _along(self, net: Network, w, pf, frac, solver, kind: str, leading=None) -> Loading | str:
         total = float(np.sum(np.abs(net.pd_mw))) or 1.0
-        d_pd = w * (total / float(np.sum(w)))
+        d_pd = w * (total / float(np.sum(w)))  # the direction, scaled to the base total load
         d_qd = _reactive(net, d_pd, pf, leading)
-        lam = solver.max_loadability(np.zeros(net.n_load), np.zeros(net.n_load), d_pd, d_qd)
+        s0 = self.start_share
+        lam = solver.max_loadability(s0 * d_pd, s0 * d_qd, d_pd, d_qd)
         if isinstance(lam, str):
             return lam
-        return Loading(frac * lam * d_pd, frac * lam * d_qd, kind=kind)
+        extent = s0 + lam
+        if extent <= 0:
+            return "loadability-not-positive"
+        return Loading(frac * extent * d_pd, frac * extent * d_qd, kind=kind)
 
     def plain(self, net: Network, rng, solver) -> tuple[Loading | str, tuple]:
         w, pf = self._direction(net, rng)
@@ -120,15 +130,32 @@ class Spanning:
         if self.pilot is not None:
             return self
         from ._manifest import network_hash
-        key = (network_hash(net), self.pilot_draws, self.pilot_seed, self.concentration, self.power_factor,
-               self.fraction)
-        if key not in _PILOTS:  # every split of a network in one process shares its pilot
-            _PILOTS[key] = self._pilot(net, solver)
-        return replace(self, pilot=_PILOTS[key])
-
-    def _pilot(self, net: Network, solver) -> dict:
         from ._worker import _Tools
-        tools = solver or _Tools(net)
+        key = (network_hash(net), self.pilot_draws, self.pilot_seed, self.concentration, self.power_factor,
+               self.fraction, self.start_share)
+        if key not in _PILOTS:  # every split of a network in one process shares its pilot
+            tools = solver or _Tools(net)
+            fitted = replace(self, fraction=(self.lightest_share(net, tools), self.fraction[1]))
+            _PILOTS[key] = (fitted.fraction, fitted._pilot(net, tools))
+        fraction, pilot = _PILOTS[key]
+        return replace(self, fraction=fraction, pilot=pilot)
+
+    def lightest_share(self, net: Network, tools) -> float:
+        """The lower end of ``fraction`` for ``net``: the first of :data:`LIGHT_SHARES` (at
+        least the nominal lower end) at which the base pattern, scaled to that share of its
+        extent, has a converged AC-OPF."""
+        base = np.where(net.pd_mw > 0, net.pd_mw, 0.0)
+        w = _base_weights(net) if base.sum() <= 0 else np.where(base > 0, base, _base_weights(net) * 1e-3)
+        pf = np.clip(np.cos(np.arctan2(np.abs(net.qd_mvar), np.maximum(np.abs(net.pd_mw), 1e-9))), *self.power_factor)
+        for share in (x for x in LIGHT_SHARES if x >= self.fraction[0]):
+            loading = self._along(net, w, pf, share, tools, "fit")
+            if not isinstance(loading, str) and tools.solve(loading.pd_mw, loading.qd_mvar).status == "converged":
+                return float(share)
+        raise InputError("the base load pattern is not feasible at any light share of its extent "
+                         f"({', '.join(map(str, LIGHT_SHARES))}); cannot place the spanning design",
+                         where=f"network {net.name!r}")
+
+    def _pilot(self, net: Network, tools) -> dict:
         ws, pfs, fracs, regimes = [], [], [], []
         for slot in range(self.pilot_draws):
             loading, (w, pf, frac) = self.plain(net, sample_rng(self.pilot_seed, slot, 0), tools)
@@ -167,7 +194,7 @@ class Spanning:
                 "fraction": list(self.fraction), "steer_share": self.steer_share,
                 "steered_slots": "odd", "pilot_draws": self.pilot_draws, "pilot_seed": self.pilot_seed,
                 "step_sigma": self.step_sigma, "pf_step": self.pf_step, "fraction_step": self.fraction_step,
-                "start": "zero load", **self.pilot_summary()}
+                "start_share": self.start_share, "light_shares_tried": list(LIGHT_SHARES), **self.pilot_summary()}
 
     def draw(self, net: Network, rng, solver=None, slot: int = 0) -> Loading | str:
         if self.steer_share > 0 and slot % 2 == 1 and self.pilot is not None:
@@ -184,7 +211,9 @@ class Outside:
 
     - ``power-factor``: a spanning direction with every load's power factor drawn outside the
       training range: lagging in ``low_power_factor`` or leading in ``leading_power_factor``;
-    - ``very-light``: a spanning direction at a share of its extent below the training range;
+    - ``very-light``: a spanning direction at a share of its extent below the training range
+      (``very_light``; on a network whose light loadings are infeasible, 0.6 to 1 times the
+      fitted lower end of the training range);
     - ``unseen-regime``: a steered draw kept only when its binding-limit regime never occurs in
       the training split (``train_regimes``), the pilot weighted toward regimes absent from it.
     """
@@ -199,7 +228,12 @@ class Outside:
     train_split_hash: str = ""
 
     def fitted(self, net: Network, solver=None) -> "Outside":
-        return replace(self, spanning=self.spanning.fitted(net, solver))
+        spanning = self.spanning.fitted(net, solver)
+        low = spanning.fraction[0]
+        # below the training range; where the network cannot carry light loadings (the lower
+        # end was raised when fitting), just below it
+        very_light = self.very_light if low <= Spanning.fraction[0] else (0.6 * low, low)
+        return replace(self, spanning=spanning, very_light=very_light)
 
     def with_train(self, regimes, split_hash: str) -> "Outside":
         return replace(self, train_regimes=frozenset(str(r) for r in regimes), train_split_hash=split_hash)
