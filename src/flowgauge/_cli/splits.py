@@ -100,12 +100,19 @@ def show(network) -> None:
     if not names:
         raise InputError("no frozen splits for this network", where=str(folder))
     from rich import box
-    t = Table(title=f"Frozen splits of {network}", box=box.SIMPLE_HEAD, show_edge=False, pad_edge=False,
-              padding=(0, 1, 0, 0), title_justify="left")
+    def table(title, pad=1):
+        return Table(title=title, box=box.SIMPLE_HEAD, show_edge=False, pad_edge=False,
+                     padding=(0, pad, 0, 0), title_justify="left")
+    t = table(f"Frozen splits of {network}")
     for col in ("split", "samples", "load %\nmin/med/max", "regimes", "thermal\nbinding",
                 "voltage\nbinding", "rejected\ndraws", "solve ms\nmed/max"):
         t.add_column(col, no_wrap=True)
-    notes = []
+    # coverage: a second table, so that both fit 80 columns
+    c = table(f"Coverage of {network}: share of samples with each limit family binding", pad=0)
+    for col in ("split", "regimes", "new in\nlast block", "voltage", "active\npower", "reactive\npower",
+                "thermal", "angle", "seen in\ntrain"):
+        c.add_column(col, no_wrap=True)
+    notes, kinds, computed = [], [], []
     for name in names:
         s = summarize_split(folder / name)
         lo, med, hi = s.load_pct_of_base
@@ -113,12 +120,32 @@ def show(network) -> None:
         t.add_row(name, str(s.samples), f"{lo:.0f}/{med:.0f}/{hi:.0f}", str(s.distinct_signatures),
                   _fmt(s.share_thermal, True), _fmt(s.share_voltage, True), str(sum(s.rejected.values())),
                   f"{1e3 * sec['median']:.0f}/{1e3 * sec['max']:.0f}")
+        shares = s.family_shares or {}
+        if s.last_block_new is None:
+            last = "-"
+        else:
+            size = "" if s.last_block_samples == s.discovery_block else f"/{s.last_block_samples}"
+            last = f"{s.last_block_new}{size} " + ("rising" if s.still_rising else "flat")
+        c.add_row(name, "-" if s.regimes is None else str(s.regimes), last,
+                  *(_fmt(shares.get(f), True) for f in ("voltage", "active_power", "reactive_power",
+                                                        "thermal", "angle")),
+                  _fmt(s.regime_seen_in_train, True))
+        if s.kinds:
+            kinds.append(f"{name} kinds: " + ", ".join(f"{k} {v}" for k, v in s.kinds.items()))
+        if s.coverage_from == "references":
+            computed.append(name)
         if s.rejected:
             notes.append(f"{name} rejected: " + ", ".join(f"{k} {v}" for k, v in sorted(s.rejected.items())))
         if s.notes:
             notes.append(f"{name} notes: {s.notes}")
     console.print(t)
-    for line in notes:
+    console.print(c)
+    console.print(f"new in last block: regimes first seen in the last {s.discovery_block} samples "
+                  "(n/m: m samples);\nrising: the discovery curve still rises. seen in train: share of "
+                  "samples whose\nregime occurs in train.")
+    if computed:
+        console.print("computed from the references (no coverage in the manifest): " + ", ".join(computed))
+    for line in kinds + notes:
         console.print(line)
 
 
