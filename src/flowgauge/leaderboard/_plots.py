@@ -25,7 +25,7 @@ from matplotlib.transforms import Bbox  # noqa: E402
 from ._ranking import metric_value  # noqa: E402
 from ._text import clean  # noqa: E402
 
-__all__ = ["tradeoff_svg", "split_bars_svg", "curves_svg", "prefix_ids", "LABEL_CAP"]
+__all__ = ["tradeoff_svg", "split_bars_svg", "curves_svg", "coverage_svg", "prefix_ids", "LABEL_CAP"]
 
 LABEL_CAP = 32  # characters of an entry name shown in a plot (the tables show it whole)
 _MARKERS = ("o", "s", "^", "D", "v", "P")
@@ -274,4 +274,53 @@ def curves_svg(network: str, entries: dict, calibration: dict, splits: tuple[str
         legend = ax.legend(loc="upper center", bbox_to_anchor=(0.5, -0.16), ncol=2, frameon=False)
         _plain_text(legend.get_texts())
         fig.tight_layout()
+        return _svg(fig, salt, id_prefix)
+
+
+# limit family -> bar label of the coverage plot
+_FAMILY_LABELS = {"voltage": "voltage", "active_power": "active power", "reactive_power": "reactive power",
+                  "thermal": "thermal", "angle": "angle"}
+
+
+def coverage_svg(network: str, splits: list[dict], *, id_prefix: str = "coverage") -> str | None:
+    """Coverage of the splits of one network. Left: distinct binding-limit regimes among the
+    first n accepted samples against n, one line per split. Right: share of samples with a
+    binding limit of each family, one bar per split in each family's group.
+
+    ``splits``: one dict per split, in the order shown: ``name``; ``samples`` and ``regimes``
+    (equal-length sequences: sample counts and the distinct regimes among that many samples;
+    may be empty); ``family_shares`` (family -> share, or None). None when there is nothing
+    to draw."""
+    splits = [s for s in splits if len(s["samples"]) or s.get("family_shares")]
+    if not splits:
+        return None
+    salt = f"flowgauge-{network}-coverage"
+    with _quiet_glyphs(), matplotlib.rc_context({**_RC, "svg.hashsalt": salt}):
+        fig = Figure(figsize=(_WIDTH_IN, 3.9))
+        ax, bx = fig.subplots(1, 2, gridspec_kw={"width_ratios": (1.3, 1.0)})
+        for i, s in enumerate(splits):
+            if len(s["samples"]):
+                ax.plot(s["samples"], s["regimes"], color=_colour(i), lw=1.6, label=clean(s["name"]))
+        ax.set_xlabel("accepted samples (sample order)")
+        ax.set_ylabel("distinct regimes")
+        ax.set_ylim(bottom=0)
+        ax.grid(True, lw=0.4, alpha=0.5)
+        families = list(_FAMILY_LABELS)
+        height = 0.8 / len(splits)
+        for i, s in enumerate(splits):  # families top to bottom, splits in order within each
+            shares = s.get("family_shares") or {}
+            ys = [j - 0.4 + height * (i + 0.5) for j in range(len(families))]
+            bx.barh(ys, [shares.get(f, math.nan) for f in families], height=height, color=_colour(i),
+                    label=clean(s["name"]) if not len(s["samples"]) else None)
+        bx.set_yticks(range(len(families)), [_FAMILY_LABELS[f] for f in families])
+        bx.invert_yaxis()
+        bx.set_xlim(0, 1.02)
+        bx.set_xlabel("share of samples binding")
+        bx.grid(True, axis="x", lw=0.4, alpha=0.5)
+        title = fig.suptitle(f"{_label(network)}: binding-limit regimes of the splits", fontsize=11)
+        handles = [h for a in (ax, bx) for h in a.get_legend_handles_labels()[0]]
+        labels = [lab for a in (ax, bx) for lab in a.get_legend_handles_labels()[1]]
+        legend = fig.legend(handles, labels, loc="lower center", ncol=min(len(labels), 5), frameon=False)
+        _plain_text([*legend.get_texts(), title])
+        fig.tight_layout(rect=(0, 0.08, 1, 1))
         return _svg(fig, salt, id_prefix)

@@ -18,7 +18,7 @@ from markupsafe import Markup, escape
 from .. import __version__
 from .._io import round_sig, sha256_hex
 from ..errors import IntegrityError
-from ._plots import curves_svg, split_bars_svg, tradeoff_svg
+from ._plots import coverage_svg, curves_svg, split_bars_svg, tradeoff_svg
 from ._ranking import RankTable, metric_value
 from ._rules import METRICS, Rules
 from ._text import NAME_CAP, TEXT_CAP, clean, csv_text, md, md_code, safe_link, tex
@@ -170,6 +170,9 @@ def _context(*, board, rules, records, tables, entries, splits_used, notes, with
                 svg = curves_svg(network, ranked, calib, rules.splits, kind,
                                  id_prefix=f"{net_ids[network]}-{kind}")
                 net[f"{kind}_svg"] = None if svg is None else Markup(svg)
+            svg = coverage_svg(network, _coverage_data(network, splits_used),
+                               id_prefix=f"{net_ids[network]}-coverage")
+            net["coverage_svg"] = None if svg is None else Markup(svg)
         networks.append(net)
     shown = [{**r, "submission": clean(r["submission"]), "entry": clean(r["entry"]),
               "network": clean(r["network"]), "split": clean(r["split"]),
@@ -181,6 +184,47 @@ def _context(*, board, rules, records, tables, entries, splits_used, notes, with
         "splits_used": splits_used, "notes": [clean(n, 2000) for n in notes],
         "caution": CAUTION,
     }
+
+
+def _coverage_data(network: str, splits_used: list[dict]) -> list[dict]:
+    """Per split of ``network`` that the board uses (in split-name order): distinct regimes
+    among the first n samples for every n (from the references' signatures in sample order;
+    for a split whose references are withheld, the manifest's discovery curve at its block
+    ends), and the share of samples with each limit family binding (the manifest's coverage,
+    else computed from the references with the same function)."""
+    import numpy as np
+
+    from ..splits import SPLIT_NAMES
+    from ..splits._coverage import coverage
+    from ..splits._manifest import read_manifest
+    from ..splits._store import MANIFEST_FILE, read_table
+    order = {name: i for i, name in enumerate(SPLIT_NAMES)}
+    used = sorted((s for s in splits_used if s["network"] == network),
+                  key=lambda s: (order.get(s["split"], len(order)), s["split"]))
+    out = []
+    for s in used:
+        folder = Path(s["folder"])
+        manifest = read_manifest(folder / MANIFEST_FILE)
+        cov = manifest.get("coverage")
+        ref_path = folder / manifest["files"]["references"]["path"]
+        xs, ys = np.zeros(0, int), np.zeros(0, int)
+        if ref_path.exists():
+            t = read_table(ref_path, columns=["sample_id", "signature", "binding"])
+            sid = t.column("sample_id").to_numpy()
+            sig = np.asarray(t.column("signature").to_pylist(), dtype=object)[np.argsort(sid, kind="stable")]
+            first = np.zeros(sig.size, bool)
+            first[np.unique(sig.astype(str), return_index=True)[1]] = True
+            xs, ys = np.arange(1, sig.size + 1), np.cumsum(first)
+            if cov is None:
+                binding = [b for _, b in sorted(zip(sid.tolist(), t.column("binding").to_pylist()))]
+                cov = coverage(sig, binding)
+        elif cov is not None:
+            block, new = int(cov["discovery_block"]), cov["discovery"]
+            xs = np.minimum(np.arange(1, len(new) + 1) * block, int(manifest["samples"]))
+            ys = np.cumsum(new)
+        out.append({"name": s["split"], "samples": xs.tolist(), "regimes": ys.tolist(),
+                    "family_shares": None if cov is None else cov["family_shares"]})
+    return out
 
 
 def _details(network: str, entries: dict, rules: Rules, records: list[dict],
