@@ -7,6 +7,7 @@ from pathlib import Path
 import click
 from rich.markup import escape
 
+from ..submission._format import DEFAULT_MAX_BYTES
 from ._common import console
 
 __all__ = ["validate"]
@@ -16,8 +17,9 @@ __all__ = ["validate"]
 @click.argument("file", type=click.Path(path_type=Path))
 @click.option("--split", "split_path", type=click.Path(path_type=Path), default=None,
               help="Split folder to check against (default: the known split with the hash in the file's header).")
-@click.option("--max-bytes", type=click.IntRange(min=1), default=2 * 10**9, show_default=True,
-              help="Refuse files larger than this many bytes.")
+@click.option("--max-bytes", type=click.IntRange(min=1), default=DEFAULT_MAX_BYTES, show_default=True,
+              help="Refuse files larger than this many bytes (parsing JSON takes up to 26 times "
+                   "the file size in memory; docs/submission.md).")
 def validate(file: Path, split_path: Path | None, max_bytes: int) -> None:
     """Check a predictions file (JSON or Parquet) against its schema and its split.
 

@@ -200,10 +200,20 @@ def _check_branch_types(br: dict, src: str) -> None:
                          where=f"{src}:{int(br['line'][k])}")
 
 
+def _check_ratings(br: dict, src: str) -> None:
+    # 0 means "no thermal limit" in this format; a negative rating means nothing (as in our JSON format)
+    bad = br["rate"] < 0
+    if bad.any():
+        k = int(np.flatnonzero(bad)[0])
+        raise InputError(f"columns 51-55 (MVA rating 1): negative rating {br['rate'][k]:g} (expected > 0, "
+                         "or 0 for no thermal limit)", where=f"{src}:{int(br['line'][k])}")
+
+
 def _build(cards: _Cards, src: str) -> Network:
     b, br, base = cards.bus, cards.branch, cards.base_mva
     btype = _bus_types(b, src)
     _check_branch_types(br, src)
+    _check_ratings(br, src)
     # Type 1 buses hold voltage within the limits in columns 91-106, when given.
     vlim = (b["type"] == 1) & (b["qmax"] > 0) & (b["qmin"] > 0) & (b["qmin"] <= b["qmax"])
     is_gen = (btype != BUS_PQ) | (b["pg"] != 0) | (b["qg"] != 0)

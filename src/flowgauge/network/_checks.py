@@ -29,6 +29,12 @@ _TABLES = {
 # NaN means "absent" in these fields (no costs, no thermal limit).
 _MAY_BE_NAN = ("cost_c2", "cost_c1", "cost_c0", "rate_mva")
 _COSTS = ("cost_c2", "cost_c1", "cost_c0")
+# Range rule for every number of a network: base_mva in (0, MAX_BASE_MVA], every other number
+# at most MAX_MAGNITUDE in absolute value, in the file's units (MW, MVAr, MVA, p.u., degrees,
+# kV, $). Published systems stay below 10,000 (a rating of 9,900 MVA meaning "no limit"); the
+# bounds keep products and squares of values far from floating-point overflow in the solvers.
+MAX_BASE_MVA = 1e6
+MAX_MAGNITUDE = 1e9
 # Network attribute -> field name in the JSON format, for messages.
 _JSON_NAME = {"bus_id": "id", "bus_type": "type", "load_id": "id", "load_bus": "bus", "gen_id": "id",
               "gen_bus": "bus", "branch_id": "id", "cost_c2": "cost_c2_per_mw2h",
@@ -55,8 +61,10 @@ def _check_shapes(net: Network, source: str) -> None:
             if len(shape) != 1 or shape != first:
                 raise InputError(f"expected shape {first} like {names[0]}, got {shape}",
                                  where=f"{source}: {table} field {_JSON_NAME.get(name, name)}")
-    if not (isinstance(net.base_mva, (int, float, np.floating)) and np.isfinite(net.base_mva) and net.base_mva > 0):
-        raise InputError(f"expected a positive finite number, got {net.base_mva!r}", where=f"{source}: base_mva")
+    if not (isinstance(net.base_mva, (int, float, np.floating)) and np.isfinite(net.base_mva)
+            and 0 < net.base_mva <= MAX_BASE_MVA):
+        raise InputError(f"expected a positive number of at most {MAX_BASE_MVA:g} MVA, got {net.base_mva!r}",
+                         where=f"{source}: base_mva")
 
 
 def _check_finite(net: Network, source: str) -> None:
@@ -70,6 +78,12 @@ def _check_finite(net: Network, source: str) -> None:
         table = "branch" if name == "rate_mva" else "generator"
         a = getattr(net, name)
         _fail(net, source, table, np.isinf(a), name, "infinite value (expected a finite number, or null for absent)")
+    for table, (_, names) in _TABLES.items():
+        for name in names:
+            a = np.asarray(getattr(net, name))
+            if a.dtype.kind == "f":
+                _fail(net, source, table, np.abs(np.nan_to_num(a)) > MAX_MAGNITUDE, name,
+                      f"value out of range (expected at most {MAX_MAGNITUDE:g} in absolute value)")
 
 
 def _check_ids(net: Network, source: str) -> None:
@@ -97,6 +111,9 @@ def _check_references(net: Network, source: str) -> None:
             i = int(np.flatnonzero(missing)[0])
             _fail(net, source, table, missing, field, f"refers to bus {int(ref[i])}, which is not in the bus table")
     _fail(net, source, "branch", net.from_bus == net.to_bus, "to_bus", "branch connects a bus to itself")
+    if net.n_bus and not np.any(net.in_service):
+        raise InputError("the network has no branch in service; expected at least two buses joined by a branch",
+                         where=f"{source}: branches")
 
 
 def _check_values(net: Network, source: str) -> None:
@@ -156,9 +173,10 @@ def _check_islands(net: Network, source: str) -> None:
 def check_network(net: Network, *, source: str = "<network>") -> None:
     """Raise :class:`InputError` naming the element and field of the first problem found.
 
-    Checked, in this order: array shapes and ``base_mva > 0``; finite numbers (costs and
-    ``rate_mva`` may be NaN = absent); integer, unique ids in each table; references to buses
-    that exist (loads, generators, both branch ends) and no branch from a bus to itself; known
+    Checked, in this order: array shapes and ``0 < base_mva <= 1e6``; finite numbers (costs and
+    ``rate_mva`` may be NaN = absent) of at most 1e9 in absolute value; integer, unique ids in each table; references to buses
+    that exist (loads, generators, both branch ends), no branch from a bus to itself and at least
+    one branch in service; known
     bus types; vmin <= vmax, pmin <= pmax, qmin <= qmax, angmin <= angmax; positive voltage
     setpoints and tap ratios; ratings >= 0; no branch with r = x = 0; costs all given or all
     absent; a reference bus in every island over in-service branches.

@@ -14,7 +14,7 @@ from typing import Any
 
 import numpy as np
 
-from .._io import atomic_write_bytes, canonical_json, read_input_bytes
+from .._io import atomic_write_bytes, canonical_json, parse_json, read_input_bytes
 from ..errors import InputError
 from ._model import BUS_PQ, BUS_PV, BUS_REF, Network
 
@@ -274,9 +274,11 @@ def read_network_json(path: str | Path) -> Network:
     except UnicodeDecodeError as exc:
         raise InputError(f"not UTF-8 text ({exc.reason} at byte {exc.start})", where=str(path)) from None
     try:
-        data = json.loads(text, parse_constant=_reject_constant)
+        data = parse_json(text, where=str(path), parse_constant=_reject_constant)
     except json.JSONDecodeError as exc:
         raise InputError(f"not valid JSON: {exc.msg}", where=f"{path}:{exc.lineno}:{exc.colno}") from None
+    except InputError:
+        raise
     except ValueError as exc:
         raise InputError(f"not valid JSON: {exc}", where=str(path)) from None
     return network_from_dict(data, source=str(path))

@@ -3,7 +3,6 @@ in the key-value metadata under ``flowgauge``."""
 
 from __future__ import annotations
 
-import json
 from pathlib import Path
 
 import numpy as np
@@ -11,7 +10,7 @@ import pyarrow as pa
 import pyarrow.compute as pc
 import pyarrow.parquet as pq
 
-from .._io import canonical_json
+from .._io import canonical_json, clip_text, parse_json
 from ..errors import InputError
 from ._format import ARRAY_FIELDS, PARQUET_KEY, REQUIRED_FIELDS, SAMPLE_KEYS, Problems
 
@@ -20,13 +19,9 @@ __all__ = ["read_parquet", "parquet_bytes"]
 _LIST_TYPES = (pa.types.is_list, pa.types.is_large_list, pa.types.is_fixed_size_list)
 
 
-def read_parquet(data: bytes, path: Path, problems: Problems):
+def read_parquet(data: bytes, path: Path, problems: Problems, max_bytes: int | None = None):
     """``(header, sample_id, {field: array or None}, inference_ms)`` in file order, or None."""
-    try:
-        table = pq.read_table(pa.BufferReader(data))
-    except Exception as exc:  # noqa: BLE001 - untrusted bytes: any reader failure is bad input
-        raise InputError(f"not a readable Parquet file ({type(exc).__name__}: {exc})",
-                         where=str(path)) from None
+    table = _read_table(data, path, max_bytes)
     header = _header(table, path, problems)
     if header is None:
         return None
@@ -50,17 +45,42 @@ def read_parquet(data: bytes, path: Path, problems: Problems):
     return header, sample_id, arrays, inference_ms
 
 
+def _read_table(data: bytes, path: Path, max_bytes: int | None) -> pa.Table:
+    """The table, read in this thread only: with reader threads (``use_threads``, and the I/O
+    pool behind ``pre_buffer``), a process that exits right after a failed or empty read
+    sometimes aborted in the thread pool's teardown ("terminate called without an active
+    exception", exit 134). The footer's uncompressed size is checked against ``max_bytes``
+    first, so a small file cannot expand into memory without bound."""
+    try:
+        meta = pq.ParquetFile(pa.BufferReader(data), pre_buffer=False).metadata
+        expanded = sum(meta.row_group(i).total_byte_size for i in range(meta.num_row_groups))
+        if max_bytes is not None and expanded > max_bytes:
+            raise InputError(f"the Parquet data expand to {expanded:,} bytes, over the limit of "
+                             f"{max_bytes:,} bytes (raise it with --max-bytes, or max_bytes= in Python)",
+                             where=str(path))
+        return pq.read_table(pa.BufferReader(data), use_threads=False, pre_buffer=False)
+    except InputError:
+        raise
+    except Exception as exc:  # noqa: BLE001 - untrusted bytes: any reader failure is bad input
+        detail = " ".join(f"{type(exc).__name__}: {exc}".split())
+        raise InputError(f"not a readable Parquet file ({clip_text(detail)})", where=str(path)) from None
+
+
 def _header(table: pa.Table, path: Path, problems: Problems):
     from ._predictions import check_header
     meta = table.schema.metadata or {}
     if PARQUET_KEY not in meta:
         raise InputError("the Parquet key-value metadata has no 'flowgauge' key holding the header "
                          "(format, format_version, split, model)", where=str(path))
+    where = f"{path}: metadata flowgauge"
     try:
-        doc = json.loads(meta[PARQUET_KEY].decode("utf-8"))
-    except (UnicodeDecodeError, ValueError, RecursionError) as exc:
-        raise InputError(f"the header in the Parquet metadata key 'flowgauge' is not valid JSON ({exc})",
-                         where=str(path)) from None
+        doc = parse_json(meta[PARQUET_KEY].decode("utf-8"), where=where)
+    except InputError:
+        raise
+    except UnicodeDecodeError as exc:
+        raise InputError(f"the header is not UTF-8 text (byte {exc.start})", where=where) from None
+    except ValueError as exc:  # json.JSONDecodeError
+        raise InputError(f"the header is not valid JSON ({exc})", where=where) from None
     header = check_header(doc, path, problems)
     if header is not None and "samples" in doc:
         problems.add("metadata flowgauge: /samples", "the Parquet header holds no samples; they are the rows")

@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import gc
 import json
 import os
 from dataclasses import dataclass
@@ -10,7 +9,7 @@ from pathlib import Path
 
 import numpy as np
 
-from .._io import canonical_json, hash_arrays, read_input_bytes, sha256_hex
+from .._io import canonical_json, hash_arrays, parse_json, read_input_bytes, sha256_hex
 from ..errors import InputError
 from ._format import (
     ARRAY_FIELDS, DEFAULT_MAX_BYTES, FORMAT_NAME, FORMAT_VERSION, HEADER_KEYS, Problems,
@@ -111,7 +110,7 @@ def read_predictions(path: str | os.PathLike, *, max_bytes: int = DEFAULT_MAX_BY
     problems = Problems()
     if data[:4] == PARQUET_MAGIC:
         from ._parquet import read_parquet
-        parsed, fmt = read_parquet(data, path, problems), "parquet"
+        parsed, fmt = read_parquet(data, path, problems, max_bytes), "parquet"
     else:
         parsed, fmt = _read_json(data, path, problems), "json"
     if parsed is None or problems:
@@ -129,7 +128,7 @@ def _read_json(data: bytes, path: Path, problems: Problems):
     if not text.strip():
         raise InputError("the file is empty; expected a JSON or Parquet predictions file", where=str(path))
     try:
-        doc = _parse_json(text)
+        doc = parse_json(text, where=str(path))
     except json.JSONDecodeError as exc:
         body = text.rstrip()
         # An object ends with "}": an error in the last few characters of a text that does
@@ -139,8 +138,6 @@ def _read_json(data: bytes, path: Path, problems: Problems):
         hint = "the file ends early (truncated?)" if ends_early else exc.msg
         raise InputError(f"not valid JSON: {hint} at line {exc.lineno} column {exc.colno}",
                          where=str(path)) from None
-    except (ValueError, RecursionError) as exc:
-        raise InputError(f"not valid JSON: {exc}", where=str(path)) from None
     header = check_header(doc, path, problems)
     if header is None:
         return None
@@ -153,19 +150,6 @@ def _read_json(data: bytes, path: Path, problems: Problems):
     if checked is None:
         return None
     return (header, *checked)
-
-
-def _parse_json(text: str):
-    """``json.loads`` with the cyclic garbage collector paused: parsing creates millions of
-    lists that hold no cycles, and collections triggered by their allocation would rescan
-    them again and again."""
-    was_enabled = gc.isenabled()
-    gc.disable()
-    try:
-        return json.loads(text)
-    finally:
-        if was_enabled:
-            gc.enable()
 
 
 def check_header(doc, path: Path, problems: Problems) -> dict | None:

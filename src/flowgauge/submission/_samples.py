@@ -10,6 +10,7 @@ agreement with the split is checked by validation. ``vm_pu > 0`` is a value chec
 from __future__ import annotations
 
 import math
+import sys
 from itertools import chain
 from operator import itemgetter
 
@@ -22,6 +23,17 @@ __all__ = ["check_samples", "json_type", "stack_rows"]
 _NUMBER = {int, float}
 _ABSENT = object()
 _INT64_MAX = 2**63 - 1
+_FLOAT_MAX = sys.float_info.max
+
+
+def _digits(v: int) -> str:
+    """A huge integer as quoted in a message: its first digits and how many there are."""
+    sign = "-" if v < 0 else ""
+    try:
+        text = str(abs(v))
+    except ValueError:  # Python refuses to print integers of more than 4,300 digits
+        return f"{sign}(more than 4,300 digits)"
+    return f"{sign}{text[:12]}... ({len(text):,} digits)" if len(text) > 30 else f"{sign}{text}"
 
 
 def json_type(value) -> str:
@@ -108,7 +120,7 @@ def _sample_ids(ids: list, problems: Problems) -> np.ndarray:
         if not 0 <= min(ids) or max(ids) > _INT64_MAX else []
     for i in big:
         problems.add(f"/samples/{i}/sample_id",
-                     f"sample id {ids[i]} is out of range (0 to {_INT64_MAX})")
+                     f"sample id {_digits(ids[i])} is out of range (0 to {_INT64_MAX})")
     if big:
         return np.zeros(len(ids), dtype=np.int64)
     return np.array(ids, dtype=np.int64)
@@ -148,21 +160,23 @@ def stack_rows(rows: list, field: str, problems: Problems, where) -> np.ndarray 
     except OverflowError:
         for i, r in enumerate(rows):
             for j, v in enumerate(r):
-                if type(v) is int and abs(v) > 1e308:
-                    problems.add(where(i, j), f"the integer {str(v)[:12]}... is too large")
+                if type(v) is int and abs(v) > _FLOAT_MAX:
+                    problems.add(where(i, j), f"the integer {_digits(v)} is too large")
         return None
 
 
 def _inference_ms(samples: list, problems: Problems) -> np.ndarray:
     values = [s.get("inference_ms", _ABSENT) for s in samples]
     if set(map(type, values)) <= {int, float, object} and all(
-            v is _ABSENT or 0 <= v < math.inf for v in values):
+            v is _ABSENT or 0 <= v <= _FLOAT_MAX for v in values):
         return np.array([math.nan if v is _ABSENT else v for v in values], dtype=np.float64)
     for i, v in enumerate(values):
         if v is _ABSENT:
             continue
         if type(v) not in _NUMBER:
             problems.add(f"/samples/{i}/inference_ms", f"expected a number, got {json_type(v)}")
+        elif type(v) is int and v > _FLOAT_MAX:
+            problems.add(f"/samples/{i}/inference_ms", f"the integer {_digits(v)} is too large")
         elif not math.isfinite(v):
             problems.add(f"/samples/{i}/inference_ms",
                          f"{v!r} is not allowed; give a finite number of milliseconds or leave it out")
