@@ -8,47 +8,107 @@ from pathlib import Path
 import click
 from rich import box
 from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeElapsedColumn
+from rich.markup import escape
 from rich.table import Table
 
-from ._common import console, err_console
+from ._common import console, err_console, fmt_num, fmt_pct, short_hash, shown, table
 
 __all__ = ["score", "baseline", "demo"]
 
 
-def _fmt(x, digits: int = 4) -> str:
-    return "-" if x is None else f"{x:.{digits}g}"
+def _fmt(x, decimals: int = 2) -> str:
+    return fmt_num(x, decimals)
 
 
 def _pct(x) -> str:
-    return "-" if x is None else f"{100 * x:.1f}%"
+    return fmt_pct(x)
+
+
+# violation family key -> (words, unit) for the console; an unknown key is shown with spaces
+_QUANTITY = {"active_power_mw": ("active power", "MW"), "reactive_power_mvar": ("reactive power", "MVAr"),
+             "voltage_pu": ("voltage", "p.u."), "angle_deg": ("angle difference", "deg"),
+             "thermal_pct": ("thermal", "% of rating"), "thermal_mva": ("thermal", "MVA"),
+             "balance_mw": ("active balance", "MW"), "balance_mvar": ("reactive balance", "MVAr")}
+_CAUSE_WORDS = {"active_power": "active power limits", "reactive": "reactive power limits",
+                "voltage": "voltage limits", "thermal": "thermal limits", "angle": "angle limits",
+                "diverged": "power flow did not converge"}
+
+
+def _family_label(key: str) -> tuple[str, int]:
+    """("restored voltage violation, p.u.", decimals) for a violation family key."""
+    stage, _, quantity = key.partition("_")
+    words, unit = _QUANTITY.get(quantity, (quantity.replace("_", " "), ""))
+    where = {"raw": "predicted", "restored": "restored"}.get(stage, stage)
+    return f"{where} {words} violation" + (f", {unit}" if unit else ""), 4 if unit == "p.u." else 2
 
 
 def _summary_table(card) -> Table:
     a = card.aggregates
     h = card.header
-    t = Table(title=f"{h['split']['network']} / {h['split']['split']}: {h['model'].get('name', '')}",
-              show_header=True, header_style="bold", caption="lower is better; gaps: closer to 0 is better")
+    t = table(title=f"{shown(h['split']['network'])} / {shown(h['split']['split'])}: "
+                    f"{shown(h['model'].get('name', ''), 60)}",
+              caption="violations: share of samples / largest violation; lower is better,\n"
+                      "but gaps (optimality gaps): closer to 0 is better")
     t.add_column("metric")
-    t.add_column("value", justify="right")
+    t.add_column("value", justify="right", no_wrap=True)
     ci = a["ci95"]["restoration_failure_rate"]
-    t.add_row("samples", str(a["samples"]))
-    t.add_row("restoration_failure_rate", _pct(a["restoration_failure_rate"])
+    t.add_row("samples", f"{a['samples']:,}")
+    t.add_row("restoration failure rate", _pct(a["restoration_failure_rate"])
               + ("" if ci is None else f"  [{_pct(ci[0])}, {_pct(ci[1])}]"))
     for cause, share in a["restoration_failure_causes"].items():
         if share:
-            t.add_row(f"  cause {cause}", _pct(share))
-    for key in ("raw_gap_pct", "restored_gap_pct"):
-        s = a[key]
-        t.add_row(f"{key} mean / p95 / max",
-                  "-" if s is None else f"{_fmt(s['mean'])} / {_fmt(s['p95'])} / {_fmt(s['max'])}")
+            t.add_row(f"  failed: {_CAUSE_WORDS.get(cause, cause.replace('_', ' '))}", _pct(share))
+    for key, label in (("raw_gap_pct", "gap of the prediction, %"), ("restored_gap_pct", "gap after restoration, %")):
+        st = a[key]
+        t.add_row(f"{label} (mean/p95/max)",
+                  "-" if st is None else f"{_fmt(st['mean'])} / {_fmt(st['p95'])} / {_fmt(st['max'])}")
     for fam, v in a["violations"].items():
         if v is not None and v["max"] > 0:
-            t.add_row(f"{fam}: share / max", f"{_pct(v['share'])} / {_fmt(v['max'])}")
+            label, decimals = _family_label(fam)
+            t.add_row(escape(label), f"{_pct(v['share'])} / {_fmt(v['max'], decimals)}")
     if a["inference_ms"] is not None:
-        t.add_row("inference_ms mean (self-reported)", _fmt(a["inference_ms"]["mean"]))
+        t.add_row("inference time, ms (mean, self-reported)", _fmt(a["inference_ms"]["mean"]))
     if a["speedup_indicative"] is not None:
-        t.add_row("speed-up vs reference solver (indicative)", _fmt(a["speedup_indicative"], 3))
+        t.add_row("speed-up over the reference solver (indicative)", _fmt(a["speedup_indicative"]))
     return t
+
+
+def default_scorecard_path(file: Path) -> Path:
+    """FILE's name without its last suffix, then ``.scorecard.json``: m.v1.json ->
+    m.v1.scorecard.json, x.scorecard.json -> x.scorecard.scorecard.json (never FILE itself)."""
+    return file.with_name(f"{file.stem}.scorecard.json")
+
+
+def _same_file(a: Path, b: Path) -> bool:
+    try:
+        return a.resolve() == b.resolve() or (a.exists() and b.exists() and a.samefile(b))
+    except OSError:
+        return False
+
+
+def _refuse_overwriting_inputs(outputs: dict, inputs: list[Path]) -> None:
+    """An output that is an input would destroy it (the scorecard written over the predictions)."""
+    from ..errors import InputError
+
+    seen: dict = {}
+    for option, path in outputs.items():
+        if path is None:
+            continue
+        for source in inputs:
+            if _same_file(path, source):
+                raise InputError(f"is an input of this run ({shown(source)}); choose another path",
+                                 where=f"{option} {path}")
+        for other, earlier in seen.items():
+            if _same_file(path, earlier):
+                raise InputError(f"is also given to {other}; choose two paths", where=f"{option} {path}")
+        seen[option] = path
+
+
+def _split_inputs(split_path) -> list[Path]:
+    if split_path is None:
+        return []
+    folder = Path(split_path)
+    return [folder, *folder.iterdir()] if folder.is_dir() else [folder]
 
 
 class _LazyProgress:
@@ -77,7 +137,8 @@ class _LazyProgress:
 @click.option("--split", "split_path", type=click.Path(path_type=Path), default=None,
               help="Split folder or NETWORK/SPLIT (default: found from the split hash in the file's header).")
 @click.option("--out", type=click.Path(dir_okay=False, path_type=Path), default=None,
-              help="Scorecard path (default: FILE with the suffix .scorecard.json).")
+              help="Scorecard path (default: FILE's name without its last suffix, then .scorecard.json: "
+                   "m.v1.json gives m.v1.scorecard.json). Never one of the run's inputs.")
 @click.option("--per-sample", type=click.Path(dir_okay=False, path_type=Path), default=None,
               help="Also write the per-sample table as Parquet here.")
 @click.option("--workers", type=click.IntRange(min=1), default=1, show_default=True,
@@ -91,7 +152,8 @@ def score(file: Path, split_path, out, per_sample, workers: int, scheduler, prof
     """Validate and score a predictions FILE; write a canonical JSON scorecard."""
     from ..scoring import score as score_predictions
 
-    out = out if out is not None else file.with_name(file.name.split(".")[0] + ".scorecard.json")
+    out = out if out is not None else default_scorecard_path(file)
+    _refuse_overwriting_inputs({"--out": out, "--per-sample": per_sample}, [file, *_split_inputs(split_path)])
     bar = _LazyProgress()
     try:
         card = score_predictions(file, split_path, profile=profile, workers=workers, scheduler=scheduler,
@@ -102,7 +164,7 @@ def score(file: Path, split_path, out, per_sample, workers: int, scheduler, prof
         card.write_per_sample(per_sample)
     card.write(out)
     console.print(_summary_table(card))
-    console.print(f"scorecard {out} (hash {card.scorecard_hash[:16]}...)", soft_wrap=True)
+    console.print(f"scorecard {shown(out, 200)} (hash {short_hash(card.scorecard_hash)})", soft_wrap=True)
 
 
 @click.command()

@@ -19,6 +19,7 @@ from typing import Callable
 
 import numpy as np
 
+from .._workers import pool_initializer
 from ..errors import InputError
 from ..network import Network
 from ..powerflow._status import SWITCHING_UNSETTLED
@@ -166,7 +167,7 @@ def _run_chunks(net, arrays, powerflow, workers, scheduler, progress) -> list[di
         finally:
             client.close()
     elif workers > 1 and len(pieces) > 1:
-        with ProcessPoolExecutor(max_workers=workers, initializer=_init_worker, initargs=(net,)) as pool:
+        with ProcessPoolExecutor(max_workers=workers, **pool_initializer(_init_worker, (net,))) as pool:
             futures = [pool.submit(_solve_in_worker, *p, powerflow) for p in parts]
             collect(f.result() for f in futures)
     else:

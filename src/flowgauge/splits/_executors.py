@@ -9,6 +9,7 @@ from __future__ import annotations
 from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
 from typing import Any, Callable, Iterable, Iterator
 
+from .._workers import pool_initializer
 from ..errors import InputError
 
 __all__ = ["run_tasks"]
@@ -20,7 +21,7 @@ def _serial(fn: Callable, tasks: list) -> Iterator[tuple[Any, Any]]:
 
 
 def _local(fn: Callable, tasks: list, workers: int) -> Iterator[tuple[Any, Any]]:
-    with ProcessPoolExecutor(max_workers=workers) as pool:
+    with ProcessPoolExecutor(max_workers=workers, **pool_initializer()) as pool:
         pending = {pool.submit(fn, *task): task for task in tasks}
         try:
             while pending:

@@ -19,6 +19,12 @@ from ._verify import verify_split
 __all__ = ["publish_split"]
 
 
+def _umask() -> int:
+    mask = os.umask(0)
+    os.umask(mask)
+    return mask
+
+
 def publish_split(split: str | Path, out_dir: str | Path) -> Path:
     """Verify the split, then write its inputs and manifest (no references) to ``out_dir``.
 
@@ -40,6 +46,7 @@ def publish_split(split: str | Path, out_dir: str | Path) -> Path:
     out.parent.mkdir(parents=True, exist_ok=True)
     stage = Path(tempfile.mkdtemp(prefix=f".{out.name}.", dir=out.parent))
     try:
+        os.chmod(stage, 0o777 & ~_umask())  # mkdtemp makes it private (0700); the output is not
         for name in names:
             shutil.copyfile(folder / name, stage / name)
         if out.exists():
