@@ -154,3 +154,20 @@ def test_page_shows_a_deterministic_coverage_plot(tmp_path):
     first = (board / "index.html").read_bytes()
     assert main(["rank", str(board)]) == 0
     assert (board / "index.html").read_bytes() == first
+
+
+def test_plot_of_a_split_with_withheld_references_uses_the_manifests_discovery_curve(built, tmp_path):
+    from flowgauge.leaderboard._plots import coverage_svg
+    from flowgauge.leaderboard._render import _coverage_data
+    root, train, edge = built
+    folder = tmp_path / "train-local"
+    shutil.copytree(train, folder)
+    (folder / "references.parquet").unlink()  # as a published split: inputs and manifest only
+    data = _coverage_data("ieee14", [{"network": "ieee14", "split": "train-local", "folder": folder},
+                                     {"network": "ieee30", "split": "train", "folder": tmp_path / "absent"}])
+    hand = _by_hand(load_split(train))
+    # cumulative new regimes at the end of each block of 100 samples, the last block ending at 110
+    assert data == [{"name": "train-local", "samples": [100, 110],
+                     "regimes": [hand["discovery"][0], hand["regimes"]],
+                     "family_shares": pytest.approx(hand["shares"], abs=1e-9)}]
+    assert coverage_svg("ieee14", [{"name": "x", "samples": [], "regimes": [], "family_shares": None}]) is None
