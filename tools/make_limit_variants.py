@@ -234,12 +234,14 @@ def main(argv: list[str] | None = None) -> int:
                   file=sys.stderr)
             return 2
     if args.check:
-        print("| network | samples | thermal binding | angle binding | either | not converged |")
-        print("|---|---|---|---|---|---|")
+        print("| network | loadings | thermal limit binds | angle limit binds | either binds | "
+              "not converged (variant) | not converged (original) |")
+        print("|---|---|---|---|---|---|---|")
         for name in names:
             c = check_variant(name, n=args.samples)
             print(f"| {c['name']} | {c['samples']} | {c['thermal']:.0%} | {c['angle']:.0%} | "
-                  f"{c['either']:.0%} | {c['not_converged']:.1%} |", flush=True)
+                  f"{c['either']:.0%} | {c['not_converged']:.1%} | {c['not_converged_original']:.1%} |",
+                  flush=True)
         return 0
     bad = 0
     for name in names:
