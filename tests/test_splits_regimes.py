@@ -34,10 +34,10 @@ from flowgauge.splits import load_split
 # manifest's "solver"): voltage [p.u.], generator output [p.u. on base_mva], branch flow as a
 # fraction of its rating, angle difference [rad]. Read from the manifest below, checked here.
 BINDING_TOL = 1e-4
-# (split, sample) pairs: heavy loadings with thermal limits binding (ieee30 test-edge), loadings
-# outside the training range and within it; a few seconds of PYPOWER each.
+# (split, sample) pairs: heavy loadings with thermal limits binding (ieee30 test-edge) and
+# loadings outside the training range; a few seconds of PYPOWER each.
 SAMPLES = [("ieee30", "test-edge", 0), ("ieee30", "test-edge", 25), ("ieee30", "test-ood", 0),
-           ("ieee14", "test-ood", 50), ("ieee14", "test-id", 0)]
+           ("ieee14", "test-ood", 50)]
 # PYPOWER column indices (pypower.idx_bus / idx_gen / idx_brch)
 VM, VA, MU_VMAX, MU_VMIN = 7, 8, 15, 16
 PG, QG, MU_PMAX, MU_PMIN, MU_QMAX, MU_QMIN = 1, 2, 21, 22, 23, 24
@@ -161,6 +161,6 @@ def test_labels_agree_with_pypowers_multipliers(solved):
     assert strict > 0
     # on these samples: a few weakly active reactive limits, each a generator at qmin (seen when
     # this test was written: ieee30/test-edge#0 and #25 gen:2:qmin with 0.0097 and 0.0013
-    # $/MVArh, ieee14/test-ood#50 gen:1:qmin with 0.0062 $/MVArh, 3 of 30 labels); never more
+    # $/MVArh, ieee14/test-ood#50 gen:1:qmin with 0.0062 $/MVArh, 3 of 25 labels); never more
     # than a small share of the binding limits
     assert len(degenerate) <= 0.2 * (strict + len(degenerate)), degenerate
