@@ -32,7 +32,7 @@ def test_breakdown_by_regime_and_kind(scored):
             assert g["restoration_failure_rate"] == pytest.approx(table["restoration_failed"][mask].mean())
             assert g["solved_share"] == pytest.approx(table["solved"][mask].mean())
             assert g["severity"]["max"] == pytest.approx(table["severity"][mask].max())
-    assert sorted(a["by_kind"]) == ["power-factor", "unseen-regime", "very-light"]
+    assert sorted(a["by_kind"]) == ["concentrated", "power-factor", "unseen-regime"]
     for name, g in a["by_kind"].items():
         assert g["samples"] == int((kind == name).sum()) == 3
         assert g["restoration_failure_rate"] == pytest.approx(table["restoration_failed"][kind == name].mean())

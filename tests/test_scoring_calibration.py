@@ -42,7 +42,9 @@ def test_verdict_is_monotone_in_the_size_of_the_error(network, split_name):
     ladder = [_ladder_values(_aggregates(sp, level)) for level in (0.0, *CALIBRATION_LEVELS)]
     # the exact reference: nothing fails (common practice: a verdict is zero for the optimum)
     assert ladder[0]["restoration_failure_rate"] == 0.0 and ladder[0]["unsolved_share"] == 0.0
-    assert ladder[0]["severity_max"] < 1e-6
+    # severity of the reference itself: its limits hold to the AC-OPF's 1e-6 p.u. feasibility
+    # tolerance, i.e. 1e-5 of a 0.1 p.u. voltage band
+    assert ladder[0]["severity_max"] < 1e-5
     for lower, higher in zip(ladder, ladder[1:]):
         for name in lower:
             assert higher[name] >= lower[name] - 1e-12, (network, split_name, name, lower[name], higher[name])

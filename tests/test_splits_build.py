@@ -172,15 +172,15 @@ def test_out_of_distribution_build_tags_kinds_and_unseen_regimes(tmp_path):
     build_split("ieee14", "train", samples=12, seed=3, out=root / "train", chunk=6)
     m = build_split("ieee14", "test-ood", samples=6, seed=4, out=root / "test-ood", chunk=3)
     s, train = load_split(root / "test-ood"), load_split(root / "train")
-    assert s.kind.tolist() == ["power-factor", "very-light", "unseen-regime"] * 2
+    assert s.kind.tolist() == ["power-factor", "concentrated", "unseen-regime"] * 2
     # every unseen-regime sample's binding-limit set is absent from the training split, and the
     # per-sample flag says so (recomputed here from the two reference tables)
     in_train = np.isin(s.references.signature, train.references.signature)
     assert not in_train[s.kind == "unseen-regime"].any()
     assert np.array_equal(s.references.regime_seen_in_train, in_train)
     assert m["train"]["split_hash"] == train.split_hash
-    assert m["coverage"]["kinds"] == {"power-factor": 2, "unseen-regime": 2, "very-light": 2}
-    assert all(k.split(": ")[0] in ("power-factor", "very-light", "unseen-regime", "loadability-infeasible")
+    assert m["coverage"]["kinds"] == {"concentrated": 2, "power-factor": 2, "unseen-regime": 2}
+    assert all(k.split(": ")[0] in ("power-factor", "concentrated", "unseen-regime", "loadability-infeasible", "loadability-iteration_limit", "loadability-no-feasible-load")
                for k in m["rejected"])
     assert m["draws"] == 6 + sum(m["rejected"].values())
 

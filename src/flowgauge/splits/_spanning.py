@@ -112,12 +112,13 @@ class Spanning:
         d_pd = w * (total / float(np.sum(w)))  # the direction, scaled to the base total load
         d_qd = _reactive(net, d_pd, pf, leading)
         s0 = self.start_share
-        lam = solver.max_loadability(s0 * d_pd, s0 * d_qd, d_pd, d_qd)
+        # the start may lie beyond the limit (a negative lam scales it back)
+        lam = solver.max_loadability(s0 * d_pd, s0 * d_qd, d_pd, d_qd, allow_negative=True)
         if isinstance(lam, str):
             return lam
         extent = s0 + lam
         if extent <= 0:
-            return "loadability-not-positive"
+            return "loadability-no-feasible-load"
         return Loading(frac * extent * d_pd, frac * extent * d_qd, kind=kind)
 
     def plain(self, net: Network, rng, solver) -> tuple[Loading | str, tuple]:
@@ -141,13 +142,14 @@ class Spanning:
         return replace(self, fraction=fraction, pilot=pilot)
 
     def lightest_share(self, net: Network, tools) -> float:
-        """The lower end of ``fraction`` for ``net``: the first of :data:`LIGHT_SHARES` (at
-        least the nominal lower end) at which the base pattern, scaled to that share of its
-        extent, has a converged AC-OPF."""
+        """The first of :data:`LIGHT_SHARES` (at least the nominal lower end of ``fraction``)
+        at which the base pattern, scaled to that share of its extent, has a converged AC-OPF:
+        the lower end of ``fraction`` for ``net``."""
+        floor = self.fraction[0]
         base = np.where(net.pd_mw > 0, net.pd_mw, 0.0)
         w = _base_weights(net) if base.sum() <= 0 else np.where(base > 0, base, _base_weights(net) * 1e-3)
         pf = np.clip(np.cos(np.arctan2(np.abs(net.qd_mvar), np.maximum(np.abs(net.pd_mw), 1e-9))), *self.power_factor)
-        for share in (x for x in LIGHT_SHARES if x >= self.fraction[0]):
+        for share in (x for x in LIGHT_SHARES if x >= floor):
             loading = self._along(net, w, pf, share, tools, "fit")
             if not isinstance(loading, str) and tools.solve(loading.pd_mw, loading.qd_mvar).status == "converged":
                 return float(share)
@@ -202,7 +204,7 @@ class Spanning:
         return self.plain(net, rng, solver)[0]
 
 
-_OUTSIDE_KINDS = ("power-factor", "very-light", "unseen-regime")
+_OUTSIDE_KINDS = ("power-factor", "concentrated", "unseen-regime")
 
 
 @dataclass(frozen=True, eq=False)
@@ -211,9 +213,11 @@ class Outside:
 
     - ``power-factor``: a spanning direction with every load's power factor drawn outside the
       training range: lagging in ``low_power_factor`` or leading in ``leading_power_factor``;
-    - ``very-light``: a spanning direction at a share of its extent below the training range
-      (``very_light``; on a network whose light loadings are infeasible, 0.6 to 1 times the
-      fitted lower end of the training range);
+    - ``concentrated``: a direction whose load factors have a Gamma shape k below the training
+      range (``concentrated``): load gathered on a few buses far more than training ever draws,
+      at a share of the extent in the training range. (Loadings lighter than the training range
+      are no test: the spanning design already reaches 5 % of each direction's extent, and
+      lighter loadings are infeasible on networks with minimum outputs or heavy line charging.)
     - ``unseen-regime``: a steered draw kept only when its binding-limit regime never occurs in
       the training split (``train_regimes``), the pilot weighted toward regimes absent from it.
     """
@@ -223,17 +227,12 @@ class Outside:
     spanning: Spanning = field(default_factory=Spanning)
     low_power_factor: tuple[float, float] = (0.6, 0.8)
     leading_power_factor: tuple[float, float] = (0.9, 0.99)
-    very_light: tuple[float, float] = (0.005, 0.04)
+    concentrated: tuple[float, float] = (0.1, 0.3)
     train_regimes: frozenset = frozenset()
     train_split_hash: str = ""
 
     def fitted(self, net: Network, solver=None) -> "Outside":
-        spanning = self.spanning.fitted(net, solver)
-        low = spanning.fraction[0]
-        # below the training range; where the network cannot carry light loadings (the lower
-        # end was raised when fitting), just below it
-        very_light = self.very_light if low <= Spanning.fraction[0] else (0.6 * low, low)
-        return replace(self, spanning=spanning, very_light=very_light)
+        return replace(self, spanning=self.spanning.fitted(net, solver))
 
     def with_train(self, regimes, split_hash: str) -> "Outside":
         return replace(self, train_regimes=frozenset(str(r) for r in regimes), train_split_hash=split_hash)
@@ -241,7 +240,7 @@ class Outside:
     def parameters(self, net: Network) -> dict[str, Any]:
         return {"kinds": list(_OUTSIDE_KINDS), "kind_of_slot": "slot % 3 in kinds order",
                 "low_power_factor": list(self.low_power_factor),
-                "leading_power_factor": list(self.leading_power_factor), "very_light": list(self.very_light),
+                "leading_power_factor": list(self.leading_power_factor), "concentrated": list(self.concentrated),
                 "train_split_hash": self.train_split_hash, "train_regimes": len(self.train_regimes),
                 "spanning": self.spanning.parameters(net)}
 
@@ -255,13 +254,18 @@ class Outside:
             unseen = ~np.isin(s.pilot["regime"], list(self.train_regimes))
             prob = s.pilot["probability"] * np.where(unseen, 20.0, 1.0)
             return s.steered(net, rng, solver, prob / prob.sum(), kind="unseen-regime")
+        if kind == "concentrated":
+            k = _loguniform(rng, self.concentrated)
+            w = _base_weights(net) * rng.gamma(k, 1.0 / k, net.n_load)
+            pf = rng.uniform(s.power_factor[0], s.power_factor[1], net.n_load)
+            return s._along(net, w, pf, float(rng.uniform(*s.fraction)), solver, kind)
         w, pf = s._direction(net, rng)
         if kind == "power-factor":
             lead = rng.random(net.n_load) < 0.5
             pf = np.where(lead, rng.uniform(*self.leading_power_factor, net.n_load),
                           rng.uniform(*self.low_power_factor, net.n_load))
             return s._along(net, w, pf, float(rng.uniform(*s.fraction)), solver, kind, leading=lead)
-        return s._along(net, w, pf, float(rng.uniform(*self.very_light)), solver, kind)
+        raise AssertionError(kind)  # every kind is handled above
 
     def check(self, loading: Loading, res) -> str | None:
         """Rejection reason after the reference is solved (None: keep)."""

@@ -54,10 +54,12 @@ class _Tools:
     def solve(self, pd_mw: np.ndarray, qd_mvar: np.ndarray):
         return self.solver.solve(pd_mw, qd_mvar, start=None)
 
-    def max_loadability(self, pd_mw, qd_mvar, dir_pd_mw, dir_qd_mvar) -> float | str:
+    def max_loadability(self, pd_mw, qd_mvar, dir_pd_mw, dir_qd_mvar, *, allow_negative: bool = False) -> float | str:
+        """``lam`` of the maximum loadability, or a rejection reason; ``lam <= 0`` is rejected
+        unless ``allow_negative`` (a start point beyond the limit, scaled back)."""
         from ..opf import max_loadability
         lr = max_loadability(self.net, pd_mw, qd_mvar, dir_pd_mw, dir_qd_mvar, self.settings)
-        if lr.status != "converged" or not np.isfinite(lr.lam) or lr.lam <= 0:
+        if lr.status != "converged" or not np.isfinite(lr.lam) or (lr.lam <= 0 and not allow_negative):
             return f"loadability-{lr.status}" if lr.status != "converged" else "loadability-not-positive"
         return float(lr.lam)
 
