@@ -177,10 +177,10 @@ def _solve_switching(p, pg, qg, pd, qd, vm, va0, tol, max_iter, linear, max_roun
     if int(max_rounds) != max_rounds or max_rounds < 0:
         raise InputError(f"must be a non-negative integer, got {max_rounds!r}", where="max_switch_rounds")
 
-    def run(pv, pq, vm_, va_, sbus_, hold):
-        return _run(p, pv, pq, vm_, va_, sbus_, tol, max_iter, linear, hold)
+    def run(pv, pq, vm_, va_, sbus_, hold, tolerance):
+        return _run(p, pv, pq, vm_, va_, sbus_, tolerance, max_iter, linear, hold)
 
-    return run_switching(p, run, pg, qg, pd, qd, vm, va0, int(max_rounds))
+    return run_switching(p, run, pg, qg, pd, qd, vm, va0, int(max_rounds), tol)
 
 
 def solve_powerflow(net: Network, *, pd_mw=None, qd_mvar=None, pg_mw=None, vm_pu=None, va_deg=None,

@@ -29,7 +29,7 @@ import numpy as np
 from ._prepare import Prepared, bus_injection_setpoints
 from ._status import CONVERGED, SWITCHING_UNSETTLED
 
-__all__ = ["Q_SWITCH_SLACK_MVAR", "V_RETURN_SLACK_PU", "MAX_SWITCH_ROUNDS", "run_switching"]
+__all__ = ["Q_SWITCH_SLACK_MVAR", "V_RETURN_SLACK_PU", "MAX_SWITCH_ROUNDS", "DECISION_TOL_PU", "run_switching"]
 
 # A bus total beyond its summed limit by more than this switches [MVAr]; far below any
 # tolerance a scorer applies, well above the power-flow tolerance (1e-8 p.u. of 100 MVA).
@@ -37,6 +37,10 @@ Q_SWITCH_SLACK_MVAR = 1e-4
 # A held bus returns to PV when its voltage passes the setpoint by more than this [p.u.].
 V_RETURN_SLACK_PU = 1e-6
 MAX_SWITCH_ROUNDS = 10
+# Switching is decided on solutions converged to this mismatch [p.u.] and confirmed at the
+# power flow's own tolerance: a decision needs reactive outputs to about 1e-3 p.u. (0.1 MVAr on
+# 100 MVA), not 1e-8; a wrong early decision is undone when the final solution is checked.
+DECISION_TOL_PU = 1e-3
 
 
 def _bus_limits(p: Prepared) -> tuple[np.ndarray, np.ndarray]:
@@ -54,20 +58,23 @@ def _pv_generation_mvar(p: Prepared, vm, va, qd_bus_pv) -> np.ndarray:
     return (v[:, p.pv] * np.conj(i_pv)).imag * p.net.base_mva + qd_bus_pv
 
 
-def run_switching(p: Prepared, run, pg, qg_set, pd, qd, vm, va, max_rounds: int = MAX_SWITCH_ROUNDS):
+def run_switching(p: Prepared, run, pg, qg_set, pd, qd, vm, va, max_rounds: int = MAX_SWITCH_ROUNDS,
+                  tol: float = 1e-8):
     """Power flows with reactive-limit enforcement.
 
-    ``run(pv, pq, vm, va, sbus, hold)`` solves samples (the plain solve when ``hold`` is None);
-    ``qg_set`` (S, n_gen) [MVAr] reactive setpoints. Returns ``(vm, va, iterations, status,
+    ``run(pv, pq, vm, va, sbus, hold, tol)`` solves samples (the plain solve when ``hold`` is
+    None) to the mismatch tolerance ``tol`` [p.u.]; ``qg_set`` (S, n_gen) [MVAr] reactive
+    setpoints. Switching is decided on solutions converged to :data:`DECISION_TOL_PU` (or
+    ``tol`` if looser) and confirmed on the final solution at ``tol``: a sample ends only when
+    its solution at ``tol`` calls for no change. Returns ``(vm, va, iterations, status,
     max_mismatch, qg_set, held)`` where ``held`` (S, n_gen) int8 is +1 / -1 for generators
     held at their maximum / minimum and 0 elsewhere.
     """
     net = p.net
     n_s = pg.shape[0]
+    loose = max(DECISION_TOL_PU, tol)
     vset = vm[:, p.pv].copy()
-    sbus = bus_injection_setpoints(p, pg, qg_set, pd, qd)
-    vm, va, its, status, mis = run(p.pv, p.pq, vm, va, sbus, None)
-    status = status.astype("<U32")
+    qg_set = qg_set.copy()
     limit = np.zeros((n_s, p.pv.size), np.int8)
     qmin_bus, qmax_bus = _bus_limits(p)
     qd_bus = (p.adm.cl @ qd.T).T[:, p.pv]
@@ -76,41 +83,65 @@ def run_switching(p: Prepared, run, pg, qg_set, pd, qd, vm, va, max_rounds: int 
     pv_pos[p.pv] = np.arange(p.pv.size)
     gpos = pv_pos[net.gen_bus_idx]
     at_pv = gpos >= 0
-    nonref = p.nonref
-    hold_pos = np.full(net.n_bus, -1)
-    hold_pos[nonref] = np.arange(nonref.size)
-    qg_set = qg_set.copy()
-    for round_ in range(max_rounds + 1):
-        conv = status == CONVERGED
-        if p.pv.size == 0 or not conv.any():
+    rounds = np.zeros(n_s, np.int64)
+    final = np.zeros(n_s, bool)  # the current solution is at ``tol`` (else at ``loose``)
+
+    def solve(rows, tolerance):
+        """Solve samples ``rows`` from their current voltages in one pattern: PQ = the
+        network's PQ buses and every PV bus held in any of these samples; in each sample the
+        reactive rows of those buses it does not hold keep their voltage (``hold``)."""
+        union = p.pv[(limit[rows] != 0).any(axis=0)]
+        sb = bus_injection_setpoints(p, pg[rows], qg_set[rows], pd[rows], qd[rows])
+        if union.size == 0:
+            out = run(p.pv, p.pq, vm[rows], va[rows], sb, None, tolerance)
+        else:
+            pv, pq = np.setdiff1d(p.pv, union), np.union1d(p.pq, union)
+            pos = pv_pos[pq]
+            hold = (pos >= 0)[None, :] & (limit[rows][:, np.maximum(pos, 0)] == 0)
+            out = run(pv, pq, vm[rows], va[rows], sb, hold, tolerance)
+        vm[rows], va[rows], its_r, st_r, mis[rows] = out
+        its[rows] += its_r
+        status[rows] = st_r
+
+    its = np.zeros(n_s, np.int64)
+    mis = np.zeros(n_s)
+    status = np.full(n_s, CONVERGED, dtype="<U32")
+    vm, va = np.array(vm, float), np.array(va, float)
+    solve(np.arange(n_s), loose)
+    final[:] = loose <= tol
+    while True:
+        live = np.flatnonzero(status == CONVERGED)
+        if p.pv.size == 0 or live.size == 0:
             break
-        c = np.flatnonzero(conv)
-        q = _pv_generation_mvar(p, vm[c], va[c], qd_bus[c])
-        lim = limit[c]
-        vpv = vm[c][:, p.pv]
+        q = _pv_generation_mvar(p, vm[live], va[live], qd_bus[live])
+        lim = limit[live]
+        vpv = vm[live][:, p.pv]
         high = (lim == 0) & (q > qmax_bus + Q_SWITCH_SLACK_MVAR)
         low = (lim == 0) & (q < qmin_bus - Q_SWITCH_SLACK_MVAR)
-        back = ((lim == 1) & (vpv > vset[c] + V_RETURN_SLACK_PU)) | ((lim == -1) & (vpv < vset[c] - V_RETURN_SLACK_PU))
+        back = ((lim == 1) & (vpv > vset[live] + V_RETURN_SLACK_PU)) | \
+               ((lim == -1) & (vpv < vset[live] - V_RETURN_SLACK_PU))
         changed = (high | low | back).any(axis=1)
-        if not changed.any():
+        s = live[changed]
+        polish = live[~changed & ~final[live]]
+        if s.size == 0 and polish.size == 0:
             break
-        s = c[changed]
-        if round_ == max_rounds:
-            status[s] = SWITCHING_UNSETTLED
-            break
-        new = np.where(back, 0, np.where(high, 1, np.where(low, -1, lim)))[changed]
-        limit[s] = new
-        # regulating buses hold their setpoint (returning buses start from it again)
-        vm_s = vm[s]
-        vm_s[:, p.pv] = np.where(new == 0, vset[s], vm_s[:, p.pv])
-        g_lim = np.where(at_pv[None, :], new[:, np.maximum(gpos, 0)], 0)
-        qg_set[s] = np.where(g_lim == 1, net.qmax_mvar, np.where(g_lim == -1, net.qmin_mvar, qg_set[s]))
-        hold = np.zeros((s.size, nonref.size), bool)
-        hold[:, hold_pos[p.pv]] = new == 0
-        sb = bus_injection_setpoints(p, pg[s], qg_set[s], pd[s], qd[s])
-        vm_n, va_n, its_n, st_n, mis_n = run(np.zeros(0, np.int64), nonref, vm_s, va[s], sb, hold)
-        vm[s], va[s], mis[s] = vm_n, va_n, mis_n
-        its[s] += its_n
-        status[s] = st_n
+        over = s[rounds[s] >= max_rounds]
+        status[over] = SWITCHING_UNSETTLED
+        keep = ~np.isin(s, over)
+        s, new = s[keep], np.where(back, 0, np.where(high, 1, np.where(low, -1, lim)))[changed][keep]
+        if s.size:
+            rounds[s] += 1
+            limit[s] = new
+            # regulating buses hold their setpoint (returning buses start from it again)
+            vm_s = vm[s]
+            vm_s[:, p.pv] = np.where(new == 0, vset[s], vm_s[:, p.pv])
+            vm[s] = vm_s
+            g_lim = np.where(at_pv[None, :], new[:, np.maximum(gpos, 0)], 0)
+            qg_set[s] = np.where(g_lim == 1, net.qmax_mvar, np.where(g_lim == -1, net.qmin_mvar, qg_set[s]))
+            solve(s, loose)
+            final[s] = loose <= tol
+        if polish.size:
+            solve(polish, tol)
+            final[polish] = True
     held = np.where(at_pv[None, :], limit[:, np.maximum(gpos, 0)], 0).astype(np.int8)
     return vm, va, its, status, mis, qg_set, held
