@@ -59,10 +59,12 @@ def test_table(capsys):
     out = capsys.readouterr().out
     assert rc == 0
     assert "Bundled networks" in out
-    for header in ("name", "buses", "branches", "generators", "loads", "load MW", "source"):
+    for header in ("name", "buses", "branches", "gens", "loads", "load MW", "source"):
         assert header in out
+    assert max(map(len, out.splitlines())) <= 80  # one line per network at 80 columns
+    assert "pypower.case14" in out
     line = next(ln for ln in out.splitlines() if ln.strip().startswith("ieee118"))
-    assert line.split()[:6] == ["ieee118", "118", "186", "54", "99", "4242.0"]  # PYPOWER case118 sizes
+    assert line.split()[:6] == ["ieee118", "118", "186", "54", "99", "4,242.0"]  # PYPOWER case118 sizes
 
 
 def test_unexpected_argument_exit_2(capsys):

@@ -29,9 +29,9 @@ def test_score_writes_scorecard_and_per_sample(good, tmp_path, capsys):
                "--workers", "1"])
     text = capsys.readouterr().out
     assert rc == 0
-    assert "restoration_failure_rate" in text and "0.0%" in text
+    assert "restoration failure rate" in text and "0.0%" in text
     doc = read_scorecard(out)
-    assert re.search(r"hash " + doc["scorecard_hash"][:16], text)
+    assert re.search(r"\(hash " + doc["scorecard_hash"][:12] + r"\)", text)
     rows = pd.read_parquet(table)
     assert len(rows) == 20 and rows["sample_id"].tolist() == doc["per_sample"]["sample_id"]
 

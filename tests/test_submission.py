@@ -375,7 +375,7 @@ def test_unknown_split_hash(valid_doc, tmp_path, monkeypatch):
     monkeypatch.setenv("FLOWGAUGE_SPLITS", str(tmp_path / "no-splits"))
     doc = copy.deepcopy(valid_doc)
     doc["split"]["split_hash"] = "0" * 64
-    assert re.search(r"/split/split_hash: unknown split hash 0{64}: no known split has it",
+    assert re.search(r"/split/split_hash: unknown split hash 0{64}: no split under \S+ has it; name the split with --split",
                      _validate(doc, tmp_path))
 
 

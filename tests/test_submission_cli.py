@@ -30,15 +30,17 @@ def test_valid_json_file(valid_doc, tmp_path, capsys, known_split):
     path.write_text(json.dumps(valid_doc))
     rc, out, err = run(capsys, path)
     assert rc == 0 and err == ""
-    assert re.fullmatch(rf"valid {re.escape(str(path))}: 6 samples for ieee14/test-id \(json; pg_mw, vm_pu, "
-                        r"va_deg, qg_mvar; model 'ridge on loads'; content hash [0-9a-f]{12}\.\.\.\)\n", out), out
+    assert re.fullmatch(rf"valid {re.escape(str(path))}: 6 samples for ieee14/test-id \(json\)\n"
+                        r"  model 'ridge on loads'; fields pg_mw, vm_pu, va_deg, qg_mvar\n"
+                        r"  content hash [0-9a-f]{12}\n", out), out
+    assert max(map(len, out.splitlines()[1:])) <= 80
 
 
 def test_valid_parquet_file(split, tmp_path, capsys, known_split):
     a = make_arrays(split)
     write_predictions(split, pg_mw=a["pg_mw"], vm_pu=a["vm_pu"], model=MODEL, path=tmp_path / "p.parquet")
     rc, out, err = run(capsys, tmp_path / "p.parquet")
-    assert rc == 0 and "6 samples for ieee14/test-id (parquet; pg_mw, vm_pu;" in out
+    assert rc == 0 and "6 samples for ieee14/test-id (parquet)\n  model 'ridge on loads'; fields pg_mw, vm_pu\n" in out
 
 
 def _set(doc, k, field, j, value):
@@ -61,8 +63,9 @@ BAD = {
     "unknown version": (lambda p, d: d.update(format_version=3),
                         r"^Error: {path}: /format_version: unsupported format version 3; this flowgauge reads format_version 1\n$"),
     "unknown split hash": (lambda p, d: d["split"].update(split_hash="ab" * 32),
-                           r"/split/split_hash: unknown split hash (ab){{32}}: no known split has it"),
-    "missing sample id": (lambda p, d: d["samples"].pop(2), r"/samples: 1 of the split's 6 sample ids are missing: 106"),
+                           r"/split/split_hash: unknown split hash (ab){{32}}: no split under \S+ has it; name the split with "
+                           r"--split FOLDER or NETWORK/SPLIT\n$"),
+    "missing sample id": (lambda p, d: d["samples"].pop(2), r"/samples: 1 of the split's 6 sample ids is missing: 106"),
     "duplicate sample id": (lambda p, d: d["samples"].append(copy.deepcopy(d["samples"][0])),
                             r"/samples/6/sample_id \(sample 100\): sample id 100 appears more than once"),
     "extra sample id": (lambda p, d: d["samples"][3].update(sample_id=4), r"/samples/3/sample_id \(sample 4\): sample id 4 is not in the split"),

@@ -47,7 +47,8 @@ def test_reference_solution_is_valid_and_found_by_hash(reference_json, frozen_sp
     assert rc == 0 and err == ""
     n = frozen_split.n_samples
     label = "/".join(FROZEN[0][:2])
-    assert f"valid {reference_json}: {n} samples for {label} (json; pg_mw, vm_pu, va_deg, qg_mvar;" in out
+    assert f"valid {reference_json}: {n} samples for {label} (json)\n" in out
+    assert "; fields pg_mw, vm_pu, va_deg, qg_mvar\n" in out
     pred = load_predictions(reference_json)
     assert pred.split_hash == frozen_split.split_hash
     n_bus, n_gen = FROZEN[0][2] or (len(frozen_split.bus_id), len(frozen_split.gen_id))

@@ -26,3 +26,8 @@ def __getattr__(name: str):
     if name in _API:
         return getattr(importlib.import_module(_API[name]), name)
     raise AttributeError(f"module 'flowgauge' has no attribute {name!r}")
+
+
+def __dir__() -> list[str]:
+    # tab completion (notebooks, IPython) lists the lazily imported calls too
+    return sorted({*globals(), *_API})

@@ -334,7 +334,7 @@ def parse_json(text: str, *, where: str, parse_constant=None) -> Any:
                          "per object", where=where) from None
     except RecursionError:
         raise InputError("not valid JSON: arrays or objects nested too deeply", where=where) from None
-    except json.JSONDecodeError:
+    except (json.JSONDecodeError, InputError):
         raise
     except ValueError as exc:  # e.g. an integer of more than 4,300 digits
         raise InputError(f"not valid JSON: {clip_text(str(exc))}", where=where) from None

@@ -54,7 +54,17 @@ def cli() -> None:
 
 def _show_warning(message, category, filename, lineno, file=None, line=None) -> None:
     # Warnings meant for people (a file missing costs, say): one line, no source location.
-    click.echo(f"Warning: {message}", err=True)
+    click.echo(f"Warning: {_printable(str(message))}", err=True)
+
+
+def _printable(message: str) -> str:
+    """An error message as printed: control characters and lone surrogates escaped (text from
+    files and submitters reaches messages), each line cut to a length a terminal can show."""
+    from ._io import clip_text, safe_text
+    return "\n".join(clip_text(safe_text(line), MESSAGE_LINE_CHARS) for line in message.split("\n"))
+
+
+MESSAGE_LINE_CHARS = 1000
 
 
 def main(argv: list[str] | None = None) -> int:
@@ -63,7 +73,7 @@ def main(argv: list[str] | None = None) -> int:
     try:
         cli.main(args=argv, prog_name="flowgauge", standalone_mode=False)
     except FlowgaugeError as exc:
-        click.echo(f"Error: {exc}", err=True)
+        click.echo(f"Error: {_printable(str(exc))}", err=True)
         return exc.exit_code
     except click.exceptions.Abort:
         click.echo("Aborted.", err=True)

@@ -3,17 +3,15 @@
 from __future__ import annotations
 
 import click
-from rich import box
-from rich.table import Table
-
 from ..network import bundled_names, load_network
-from ._common import console, echo_json
+from ._common import console, echo_json, fmt_num, shown, table
 
 __all__ = ["networks"]
 
 # table header -> key of the summary
-_COLUMNS = {"name": "name", "buses": "buses", "branches": "branches", "generators": "generators",
+_COLUMNS = {"name": "name", "buses": "buses", "branches": "branches", "gens": "generators",
             "loads": "loads", "load MW": "total_load_mw", "source": "source"}
+SOURCE_CHARS = 18  # the source column is cut to this with an ellipsis; --json gives it whole
 
 
 def _summary(name: str) -> dict:
@@ -31,12 +29,22 @@ def networks(as_json: bool) -> None:
     if as_json:
         echo_json(rows)
         return
-    table = Table(title="Bundled networks", box=box.SIMPLE_HEAD)
+    t = table(title="Bundled networks", caption="source cut to fit; flowgauge networks --json gives it whole")
     for header, key in _COLUMNS.items():
         if key == "source":
-            table.add_column(header, ratio=1, overflow="fold")
+            t.add_column(header, no_wrap=True, overflow="ellipsis", max_width=SOURCE_CHARS)
         else:
-            table.add_column(header, justify="left" if key == "name" else "right", no_wrap=True)
+            t.add_column(header, justify="left" if key == "name" else "right", no_wrap=True, min_width=len(header))
     for r in rows:
-        table.add_row(*(f"{r[k]:.1f}" if k == "total_load_mw" else str(r[k]) for k in _COLUMNS.values()))
-    console.print(table)
+        t.add_row(*(fmt_num(r[k], 1) if k == "total_load_mw" else shown(_short_source(r) if k == "source" else r[k])
+                    for k in _COLUMNS.values()))
+    console.print(t)
+
+
+def _short_source(row: dict) -> str:
+    """"pypower.case14" from "PYPOWER 5.1.21 (...), module pypower.case14"; else the source up
+    to its first semicolon, or the title when there is no source."""
+    source = row["source"] or row["title"]
+    if "module " in source:
+        return source.rsplit("module ", 1)[1]
+    return source.split(";")[0]

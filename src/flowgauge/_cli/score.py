@@ -175,7 +175,8 @@ def score(file: Path, split_path, out, per_sample, workers: int, scheduler, prof
               help="Predictions file to write.")
 @click.option("--train", "train_path", type=click.Path(path_type=Path), default=None,
               help="Training split: folder or NETWORK/SPLIT (default: the sibling train split, else the frozen one).")
-@click.option("--format", "fmt", type=click.Choice(["json", "parquet"]), default="json", show_default=True)
+@click.option("--format", "fmt", type=click.Choice(["json", "parquet"]), default="json", show_default=True,
+              help="File format of the predictions written to --out (docs/submission.md).")
 def baseline(name: str, split_path: Path, out: Path, train_path, fmt: str) -> None:
     """Write the predictions of baseline NAME (dc-opf, nearest, linear) for a split."""
     from ..baselines import write_baseline

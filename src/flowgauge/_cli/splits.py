@@ -46,7 +46,7 @@ class _Progress:
             self.bar.stop()
 
 
-@splits.command()
+@splits.command(short_help="Build a split of a network (resumable).")
 @click.argument("network")
 @click.option("--split", "split", required=True, type=click.Choice(SPLIT_CHOICES), help="Which split design to draw.")
 @click.option("--samples", type=click.IntRange(min=1), required=True, help="Number of samples kept.")
@@ -57,20 +57,23 @@ class _Progress:
 @click.option("--chunk", type=click.IntRange(min=1), default=10, show_default=True, help="Samples per chunk.")
 @click.option("--notes", default="", help="Text recorded in the manifest's notes.")
 @click.option("--quiet", is_flag=True, help="No progress bar.")
-def build(network, split, samples, seed, out, workers, scheduler, chunk, notes, quiet) -> None:
+@click.option("--fresh", is_flag=True,
+              help="Delete the chunks of an interrupted build of --out and start over (without it, a "
+                   "rerun with other settings refuses).")
+def build(network, split, samples, seed, out, workers, scheduler, chunk, notes, quiet, fresh) -> None:
     """Build a split of NETWORK (bundled name or file) into the folder --out (resumable)."""
     from ..splits import build_split
     progress = _Progress(quiet)
     try:
         m = build_split(network, split, samples=samples, seed=seed, out=out, workers=workers,
-                        scheduler=scheduler, chunk=chunk, notes=notes, progress=progress)
+                        scheduler=scheduler, chunk=chunk, notes=notes, progress=progress, fresh=fresh)
     finally:
         progress.stop()
     rej = sum(m["rejected"].values())
     console.print(f"{out}: {m['samples']} samples, {rej} draws rejected, split_hash {m['split_hash']}")
 
 
-@splits.command()
+@splits.command(short_help="Recompute every hash of frozen splits.")
 @click.argument("paths", nargs=-1, type=click.Path())
 def verify(paths) -> None:
     """Recompute every hash of the splits at PATHS (default: every frozen split); exit 3 on a difference."""
@@ -90,7 +93,7 @@ def _fmt(x: float, pct: bool = False) -> str:
     return f"{100 * x:.0f}%" if pct else f"{x:.2g}"
 
 
-@splits.command()
+@splits.command(short_help="Statistics of the frozen splits of a network.")
 @click.argument("network")
 def show(network) -> None:
     """Statistics of the frozen splits of NETWORK: load range, regimes, binding limits, rejections, solve times."""
@@ -149,7 +152,7 @@ def show(network) -> None:
         console.print(line)
 
 
-@splits.command()
+@splits.command(short_help="Write a split without its references.")
 @click.argument("split")
 @click.option("--out", "out", type=click.Path(file_okay=False), required=True, help="Folder to create.")
 def publish(split, out) -> None:

@@ -5,10 +5,8 @@ from __future__ import annotations
 from pathlib import Path
 
 import click
-from rich.markup import escape
-
 from ..submission._format import DEFAULT_MAX_BYTES
-from ._common import console
+from ._common import console, short_hash, shown
 
 __all__ = ["validate"]
 
@@ -29,9 +27,8 @@ def validate(file: Path, split_path: Path | None, max_bytes: int) -> None:
 
     report = check_predictions(file, split_path, max_bytes=max_bytes)
     p = report.predictions
-    fields = ", ".join(p.fields)
-    console.print(
-        f"[green]valid[/green] {escape(str(file))}: {p.n_samples} samples for "
-        f"{escape(p.header['split']['network'])}/{escape(p.header['split']['split'])} "
-        f"({p.format}; {fields}; model {escape(repr(p.header['model']['name']))}; "
-        f"content hash {p.content_hash[:12]}...)", soft_wrap=True)
+    split = p.header["split"]
+    console.print(f"[green]valid[/green] {shown(file, 120)}: {p.n_samples:,} samples for "
+                  f"{shown(split['network'], 30)}/{shown(split['split'], 20)} ({p.format})", soft_wrap=True)
+    console.print(f"  model {shown(repr(p.header['model']['name']), 40)}; fields {', '.join(p.fields)}")
+    console.print(f"  content hash {short_hash(p.content_hash)}")

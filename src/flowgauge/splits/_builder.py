@@ -14,7 +14,7 @@ from typing import Any, Callable
 import numpy as np
 
 from .. import __version__
-from .._io import atomic_write_bytes, canonical_json, hash_arrays
+from .._io import atomic_write_bytes, canonical_json, clip_text, hash_arrays
 from ..errors import InputError
 from ..network import Network, bundled_names, load_network, write_network_json
 from ._coverage import coverage
@@ -56,13 +56,34 @@ def _fingerprint(job: Job, settings: dict, chunk: int) -> dict[str, Any]:
             "flowgauge_version": __version__}
 
 
-def _prepare_partial(part: Path, fingerprint: dict) -> Path:
-    """The chunk folder, emptied if it belongs to a build with other settings."""
+def _differing_setting(have: Any, want: dict) -> str:
+    """The first setting (in the fingerprint's key order) that differs, with both values."""
+    if not isinstance(have, dict):
+        return "the record of the earlier build (unreadable)"
+    for key in want:
+        if have.get(key) != want[key]:
+            old, new = (clip_text(json.dumps(v, sort_keys=True), 80) for v in (have.get(key), want[key]))
+            return f"{key} (earlier build: {old}; now: {new})"
+    return "the record of the earlier build"
+
+
+def _prepare_partial(part: Path, fingerprint: dict, fresh: bool = False) -> Path:
+    """The chunk folder. Chunks of an interrupted build with other settings are never mixed in
+    nor silently deleted: the build refuses, naming the setting, unless ``fresh``."""
     chunks = part / "chunks"
     stamp = part / "build.json"
     want = canonical_json(fingerprint, indent=1)
-    if stamp.exists() and stamp.read_bytes() != want:
+    if fresh and part.exists():
         shutil.rmtree(part)
+    if stamp.exists() and stamp.read_bytes() != want:
+        try:
+            have = json.loads(stamp.read_text(encoding="utf-8"))
+        except (OSError, ValueError):
+            have = None
+        want_doc = json.loads(want)
+        raise InputError(f"holds chunks of an interrupted build with another {_differing_setting(have, want_doc)}; "
+                         "rerun with the same settings to resume, or with --fresh (fresh=True) to delete them "
+                         "and start over", where=str(part))
     chunks.mkdir(parents=True, exist_ok=True)
     if not stamp.exists():
         atomic_write_bytes(stamp, want)
@@ -152,11 +173,12 @@ def _finish(out: Path, part: Path, net: Network, job: Job, split: str, samples: 
 def build_split(network: str | Path | Network, split: str, *, samples: int, seed: int, out: str | Path,
                 workers: int = 1, scheduler: str | None = None, chunk: int = DEFAULT_CHUNK,
                 notes: str = "", progress: Callable[[BuildProgress], None] | None = None,
-                max_attempts: int = MAX_ATTEMPTS, train=None) -> dict[str, Any]:
+                max_attempts: int = MAX_ATTEMPTS, train=None, fresh: bool = False) -> dict[str, Any]:
     """Build one split into the folder ``out`` and return its manifest.
 
     Finished chunks are kept in a hidden sibling folder of ``out``; a rerun with the same
-    settings resumes from them. ``out`` appears only when everything is written.
+    settings resumes from them, a rerun with other settings refuses (naming the setting) unless
+    ``fresh``, which deletes them first. ``out`` appears only when everything is written.
     ``train``: the training split (a folder or a loaded Split; default the sibling folder
     ``train`` of ``out`` when it holds a finished split). Test splits record, per sample, whether
     its regime occurs in it, and the out-of-distribution design draws unseen regimes from it.
@@ -176,7 +198,7 @@ def build_split(network: str | Path | Network, split: str, *, samples: int, seed
               stream=draw_stream(split, design.name))
     settings = solver_settings()
     part = partial_dir(out)
-    chunks_dir = _prepare_partial(part, _fingerprint(job, settings, chunk))
+    chunks_dir = _prepare_partial(part, _fingerprint(job, settings, chunk), fresh)
     ranges = _chunk_ranges(samples, chunk)
     done = {r: read_chunk(_chunk_path(chunks_dir, *r)) for r in ranges if _chunk_path(chunks_dir, *r).exists()}
     solved = sum(r[1] - r[0] for r in done)

@@ -9,7 +9,7 @@ from functools import lru_cache
 from pathlib import Path
 from typing import Any
 
-from .._io import atomic_write_bytes, canonical_json, sha256_hex
+from .._io import atomic_write_bytes, canonical_json, parse_json, read_input_bytes, sha256_hex
 from ..errors import InputError
 from ..network import Network, network_to_dict
 
@@ -59,13 +59,25 @@ def check_schema(manifest: Any, source: str) -> None:
         raise InputError(f"manifest does not follow its schema: {e.message}", where=f"{source}: {pointer}")
 
 
+MAX_MANIFEST_BYTES = 100 * 10**6  # element id lists of a 100,000-bus network fit many times over
+
+
+def parse_manifest(data: bytes, where: str) -> Any:
+    """The manifest's JSON (not yet schema-checked); :class:`InputError` for text that is not
+    JSON, keys given twice, or nesting too deep."""
+    try:
+        return parse_json(data.decode("utf-8"), where=where)
+    except UnicodeDecodeError as exc:
+        raise InputError(f"not UTF-8 text (byte {exc.start})", where=where) from None
+    except json.JSONDecodeError as exc:
+        raise InputError(f"not valid JSON ({exc})", where=where) from None
+
+
 def read_manifest(path: Path) -> dict[str, Any]:
     """Read and schema-check a manifest (no hash checks: see ``verify_split``)."""
-    try:
-        data = json.loads(Path(path).read_text(encoding="utf-8"))
-    except FileNotFoundError:
-        raise InputError("no manifest.json here: not a finished split", where=str(path)) from None
-    except (UnicodeDecodeError, json.JSONDecodeError) as exc:
-        raise InputError(f"not valid JSON ({exc})", where=str(path)) from None
+    if not Path(path).exists():
+        raise InputError("no manifest.json here: not a finished split", where=str(path))
+    data = parse_manifest(read_input_bytes(path, expected="a split manifest", max_bytes=MAX_MANIFEST_BYTES),
+                          str(path))
     check_schema(data, str(path))
     return data

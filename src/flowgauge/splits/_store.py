@@ -12,6 +12,7 @@ from pathlib import Path
 
 import numpy as np
 import pyarrow as pa
+import pyarrow.compute  # noqa: F401 (pa.compute)
 import pyarrow.parquet as pq
 
 from .._io import atomic_write_bytes, hash_arrays
@@ -132,7 +133,9 @@ def _column_array(col: pa.ChunkedArray, name: str) -> np.ndarray:
     if pa.types.is_fixed_size_list(t):
         flat = col.flatten().to_numpy(zero_copy_only=False)
         return flat.astype(np.float64, copy=False).reshape(len(col), t.list_size)
-    if pa.types.is_list(t) or pa.types.is_large_list(t):
+    if (pa.types.is_list(t) or pa.types.is_large_list(t)) and pa.types.is_floating(t.value_type):
+        return _variable_list_array(col, name)  # e.g. rewritten by pandas as list<double>
+    if (pa.types.is_list(t) or pa.types.is_large_list(t)) and pa.types.is_string(t.value_type):
         return np.array([BINDING_SEP.join(x) for x in col.to_pylist()], dtype=object)
     if pa.types.is_string(t) or pa.types.is_large_string(t):
         return np.array(col.to_pylist(), dtype=object)
@@ -141,6 +144,18 @@ def _column_array(col: pa.ChunkedArray, name: str) -> np.ndarray:
     if pa.types.is_integer(t):
         return col.to_numpy(zero_copy_only=False).astype(np.int64, copy=False)
     raise InputError(f"unexpected column type {t}", where=f"column {name}")
+
+
+def _variable_list_array(col: pa.Array, name: str) -> np.ndarray:
+    """A ``list<double>`` column of equal-length rows as (rows, width) float64, as if it were
+    stored ``fixed_size_list``; rows of unequal length or nulls are a damaged file."""
+    lengths = pa.compute.list_value_length(col).to_numpy(zero_copy_only=False)
+    if col.null_count or (lengths.size and np.any(lengths != lengths[0])):
+        raise InputError("expected one number per element in every row (rows of different lengths or "
+                         "nulls)", where=f"column {name}")
+    width = int(lengths[0]) if lengths.size else 0
+    flat = col.flatten().to_numpy(zero_copy_only=False).astype(np.float64, copy=False)
+    return flat.reshape(len(col), width)
 
 
 def table_columns(table: pa.Table) -> dict[str, np.ndarray]:
@@ -168,7 +183,7 @@ def write_table(table: pa.Table, path: Path) -> None:
 
 def read_table(path: Path, columns: list[str] | None = None) -> pa.Table:
     try:
-        return pq.read_table(path, columns=columns)
+        return pq.read_table(path, columns=columns, use_threads=False, pre_buffer=False)
     except FileNotFoundError:
         raise InputError("no such file", where=str(path)) from None
     except (pa.ArrowInvalid, OSError, KeyError) as exc:

@@ -13,7 +13,8 @@ import numpy as np
 from .._io import hash_arrays
 from ..errors import InputError, IntegrityError
 from ._load import split_network
-from ._manifest import check_schema, compute_split_hash
+from .._io import read_input_bytes
+from ._manifest import MAX_MANIFEST_BYTES, check_schema, compute_split_hash, parse_manifest
 from ._store import MANIFEST_FILE, read_table, table_columns
 
 __all__ = ["VerifyReport", "verify_split"]
@@ -37,10 +38,9 @@ def _manifest(folder: Path) -> dict:
     if not path.exists():
         raise InputError("no manifest.json here: not a finished split", where=str(folder))
     try:
-        data = json.loads(path.read_text(encoding="utf-8"))
+        data = parse_manifest(read_input_bytes(path, expected="a split manifest", max_bytes=MAX_MANIFEST_BYTES),
+                              str(path))
         check_schema(data, str(path))
-    except (UnicodeDecodeError, json.JSONDecodeError) as exc:
-        raise IntegrityError(f"not valid JSON ({exc})", where=str(path)) from None
     except InputError as exc:
         raise IntegrityError(exc.message, where=exc.where) from None
     got = compute_split_hash(data)

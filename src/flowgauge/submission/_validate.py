@@ -92,8 +92,10 @@ def resolve_split(header_split: dict, split, problems: Problems):
         from ..splits import find_split, load_split
         try:
             split = load_split(find_split(want), references=False)
-        except InputError as exc:
-            problems.add("/split/split_hash", f"unknown split hash {want}: no known split has it ({exc})")
+        except InputError:
+            from ..splits import splits_root
+            problems.add("/split/split_hash", f"unknown split hash {want}: no split under {splits_root()} "
+                         "has it; name the split with --split FOLDER or NETWORK/SPLIT")
             return None
     elif not hasattr(split, "sample_id"):
         from ..splits import load_split
@@ -157,7 +159,8 @@ def _check_ids(pred: Predictions, expected: np.ndarray, problems: Problems) -> N
     if missing.size:
         shown = ", ".join(str(i) for i in missing[:10]) + (", ..." if missing.size > 10 else "")
         problems.add({"json": "/samples", "parquet": "column sample_id"}.get(pred.format, "sample_id"),
-                     f"{missing.size} of the split's {expected.size} sample ids are missing: {shown}")
+                     f"{missing.size} of the split's {expected.size} sample ids "
+                     f"{'is' if missing.size == 1 else 'are'} missing: {shown}")
 
 
 def _flag(pred: Predictions, field: str, bad: np.ndarray, message, problems: Problems) -> None:
