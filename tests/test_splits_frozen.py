@@ -8,9 +8,10 @@ from flowgauge.network import to_ppc
 from flowgauge.opf import ACOPF, OPFSettings
 from flowgauge.splits import SPLIT_NAMES, list_splits, load_split, splits_root, verify_split
 
-NETWORKS = ("demo", "ieee14", "ieee30", "ieee57", "ieee118", "ieee300")
-# planned counts (issue 4); a smaller frozen count must say why in the manifest's notes
-PLANNED = {"test-id": 500, "test-ood": 500, "test-edge": 200, "train": 2000}
+NETWORKS = ("demo", "ieee14", "ieee30", "ieee57", "ieee118", "ieee300",
+            "ieee14-limits", "ieee30-limits", "ieee57-limits", "ieee118-limits")
+# planned counts (tools/freeze_splits.py); a smaller frozen count must say why in the manifest's notes
+PLANNED = {"test-id": 500, "test-ood": 500, "test-edge": 200, "train": 2000, "train-local": 2000}
 PLANNED_LARGE_TRAIN = {"ieee118": 1000, "ieee300": 1000}
 FROZEN = list_splits()
 
@@ -30,7 +31,8 @@ def test_frozen_split_verifies_and_counts_match_the_plan(path):
     r = verify_split(path)
     assert r.references_present
     m = load_split(path, references=False).manifest
-    plan = PLANNED_LARGE_TRAIN.get(r.network, PLANNED[r.split]) if r.split == "train" else PLANNED[r.split]
+    large = r.split in ("train", "train-local")
+    plan = PLANNED_LARGE_TRAIN.get(r.network, PLANNED[r.split]) if large else PLANNED[r.split]
     assert r.samples == plan or (r.samples < plan and str(plan) in m["notes"])
     assert m["draws"] == r.samples + sum(m["rejected"].values())
 

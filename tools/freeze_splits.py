@@ -16,7 +16,8 @@ from pathlib import Path
 
 from flowgauge.splits import build_split, splits_root, verify_split
 
-NETWORKS = ["demo", "ieee14", "ieee30", "ieee57", "ieee118", "ieee300"]
+NETWORKS = ["demo", "ieee14", "ieee30", "ieee57", "ieee118", "ieee300",
+            "ieee14-limits", "ieee30-limits", "ieee57-limits", "ieee118-limits"]
 # train first: test splits record which of their regimes occur in it, and test-ood draws regimes
 # that never do
 SPLITS = ["train", "test-id", "test-ood", "test-edge", "train-local"]
