@@ -101,3 +101,12 @@ def test_publish_creates_its_folder_with_the_umask_permissions(tmp_path, capsys)
     os.umask(umask)
     assert stat.S_IMODE(out.stat().st_mode) == 0o777 & ~umask
     assert sorted(p.name for p in out.iterdir()) == ["inputs.parquet", "manifest.json"]
+
+
+def test_dc_opf_baseline_reports_progress_per_sample():
+    from flowgauge.baselines import predict_baseline
+    split = load_split("ieee14", "test-id", references=False)
+    calls: list = []
+    predict_baseline("dc-opf", split, progress=lambda done, total: calls.append((done, total)))
+    assert calls[0] == (1, split.n_samples) and calls[-1] == (split.n_samples, split.n_samples)
+    assert len(calls) == split.n_samples

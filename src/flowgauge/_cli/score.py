@@ -115,13 +115,18 @@ class _LazyProgress:
     """A rich progress bar that appears with the first restoration chunk, so a file rejected
     by validation prints only its error message."""
 
-    def __init__(self):
+    def __init__(self, label: str = "restoration power flows"):
+        self._label = label
         self._bar = None
         self._task = None
 
+    @property
+    def running(self) -> bool:
+        return self._bar is not None
+
     def __call__(self, done: int, total: int) -> None:
         if self._bar is None:
-            self._bar = Progress(TextColumn("restoration power flows"), BarColumn(), MofNCompleteColumn(),
+            self._bar = Progress(TextColumn(escape(self._label)), BarColumn(), MofNCompleteColumn(),
                                  TimeElapsedColumn(), console=err_console, transient=True)
             self._bar.start()
             self._task = self._bar.add_task("restore", total=total)
@@ -181,8 +186,12 @@ def baseline(name: str, split_path: Path, out: Path, train_path, fmt: str) -> No
     """Write the predictions of baseline NAME (dc-opf, nearest, linear) for a split."""
     from ..baselines import write_baseline
 
-    write_baseline(name, split_path, out, train=train_path, format=fmt)
-    console.print(f"wrote {out}")
+    bar = _LazyProgress(f"baseline {name}: samples")
+    try:
+        write_baseline(name, split_path, out, train=train_path, format=fmt, progress=bar)
+    finally:
+        bar.stop()
+    console.print(f"wrote {shown(out, 200)}")
 
 
 @click.command()
@@ -194,8 +203,14 @@ def demo(workdir, samples) -> None:
     """Run the baselines on the demo network, score them and compare."""
     from ..baselines import run_demo
 
+    bar = _LazyProgress("demo: baselines scored")
+
     def run(folder: Path):
-        return run_demo(folder, samples=samples, say=lambda msg: err_console.print(f"[dim]{msg}[/dim]"))
+        try:
+            return run_demo(folder, samples=samples, progress=bar,
+                            say=lambda msg: None if bar.running else err_console.print(f"[dim]{escape(msg)}[/dim]"))
+        finally:
+            bar.stop()
 
     if workdir is None:
         with tempfile.TemporaryDirectory(prefix="flowgauge-demo-") as tmp:

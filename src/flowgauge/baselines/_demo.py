@@ -47,10 +47,11 @@ def _splits(workdir: Path, samples: dict[str, int], say: Callable[[str], None]) 
 
 
 def run_demo(workdir: str | Path, *, samples: int | None = None,
-             say: Callable[[str], None] = lambda msg: None) -> DemoResult:
+             say: Callable[[str], None] = lambda msg: None,
+             progress: Callable[[int, int], None] | None = None) -> DemoResult:
     """Run the demo in ``workdir`` (predictions files and any built splits go there).
     ``samples``: samples per split for splits the demo builds (default :data:`BUILT_SAMPLES`);
-    ``say`` reports each step."""
+    ``say`` reports each step; ``progress(done, total)`` counts the (baseline, split) runs."""
     from ..errors import InputError
     from ..scoring import score
     from ..splits import load_split
@@ -62,6 +63,9 @@ def run_demo(workdir: str | Path, *, samples: int | None = None,
     paths, sources = _splits(workdir, counts, say)
     train = load_split(paths["train"])
     cards = {}
+    total = len(BASELINES) * len(DEMO_SPLITS)
+    if progress is not None:
+        progress(0, total)
     for name in BASELINES:
         for split_name in DEMO_SPLITS:
             split = load_split(paths[split_name])
@@ -69,4 +73,6 @@ def run_demo(workdir: str | Path, *, samples: int | None = None,
             say(f"baseline {name} on {DEMO_NETWORK}/{split_name} ({split.n_samples} samples)")
             write_baseline(name, split, out, train=train)
             cards[(name, split_name)] = score(out, split)
+            if progress is not None:
+                progress(len(cards), total)
     return DemoResult(sources=sources, split_paths={k: str(v) for k, v in paths.items()}, scorecards=cards)

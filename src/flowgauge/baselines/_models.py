@@ -43,8 +43,9 @@ def network_voltage_setpoints(net: Network) -> np.ndarray:
     return np.clip(vm, net.vmin_pu, net.vmax_pu)
 
 
-def dc_opf(net: Network, pd_mw: np.ndarray, sample_id: np.ndarray) -> Prediction:
-    """The DC-OPF dispatch of each sample, with the network's voltage setpoints (within limits)."""
+def dc_opf(net: Network, pd_mw: np.ndarray, sample_id: np.ndarray, progress=None) -> Prediction:
+    """The DC-OPF dispatch of each sample, with the network's voltage setpoints (within limits).
+    ``progress(done, total)`` is called after each sample, if given."""
     from ..opf import solve_dcopf
 
     pd = np.asarray(pd_mw, float)
@@ -56,6 +57,8 @@ def dc_opf(net: Network, pd_mw: np.ndarray, sample_id: np.ndarray) -> Prediction
             raise InputError(f"the DC-OPF has no solution for this sample (status {res.status})",
                              where=f"sample_id {int(sample_id[i])}")
         pg[i] = out
+        if progress is not None:
+            progress(i + 1, pd.shape[0])
     vm = np.broadcast_to(network_voltage_setpoints(net), (pd.shape[0], net.n_bus)).copy()
     return Prediction(pg_mw=pg, vm_pu=vm, va_deg=None, qg_mvar=None)
 

@@ -49,26 +49,28 @@ def train_split_for(split):
     return train
 
 
-def predict_baseline(name: str, split, *, train=None) -> Prediction:
+def predict_baseline(name: str, split, *, train=None, progress=None) -> Prediction:
     """Predictions of baseline ``name`` for every sample of ``split`` (a Split or its folder).
-    ``train``: the training split (a Split or folder; found with :func:`train_split_for` when None)."""
+    ``train``: the training split (a Split or folder; found with :func:`train_split_for` when None).
+    ``progress(done, total)``: called as samples are done (the dc-opf baseline solves one by one)."""
     _check_name(name)
     split = _load(split)
     if name == "dc-opf":
-        return dc_opf(split.network, split.pd_mw, split.sample_id)
+        return dc_opf(split.network, split.pd_mw, split.sample_id, progress)
     train = train_split_for(split) if train is None else _load(train)
     if name == "nearest":
         return nearest(train, split.pd_mw, split.qd_mvar)
     return linear(train, split.pd_mw, split.qd_mvar)
 
 
-def write_baseline(name: str, split, out: str | Path, *, train=None, format: str = "json") -> Path:
+def write_baseline(name: str, split, out: str | Path, *, train=None, format: str = "json",
+                   progress=None) -> Path:
     """Write baseline ``name``'s predictions for ``split`` as a valid predictions file at ``out``."""
     from ..submission import write_predictions
 
     _check_name(name)
     split = _load(split)
-    pred = predict_baseline(name, split, train=train)
+    pred = predict_baseline(name, split, train=train, progress=progress)
     model = {"name": f"baseline {name}", "authors": ["flowgauge"], "description": BASELINES[name][1],
              "training_data_only": True}
     try:

@@ -183,7 +183,9 @@ def write_table(table: pa.Table, path: Path) -> None:
 
 def read_table(path: Path, columns: list[str] | None = None) -> pa.Table:
     try:
-        return pq.read_table(path, columns=columns, use_threads=False, pre_buffer=False)
+        # the plain file reader, in this thread: no dataset scanner thread pools (see submission/_parquet.py)
+        with pq.ParquetFile(path, pre_buffer=False) as f:
+            return f.read(columns=columns, use_threads=False)
     except FileNotFoundError:
         raise InputError("no such file", where=str(path)) from None
     except (pa.ArrowInvalid, OSError, KeyError) as exc:

@@ -46,19 +46,20 @@ def read_parquet(data: bytes, path: Path, problems: Problems, max_bytes: int | N
 
 
 def _read_table(data: bytes, path: Path, max_bytes: int | None) -> pa.Table:
-    """The table, read in this thread only: with reader threads (``use_threads``, and the I/O
-    pool behind ``pre_buffer``), a process that exits right after a failed or empty read
-    sometimes aborted in the thread pool's teardown ("terminate called without an active
-    exception", exit 134). The footer's uncompressed size is checked against ``max_bytes``
+    """The table, read in this thread only, with the plain file reader: ``pq.read_table`` goes
+    through the dataset scanner and its thread pools, and a process that exited right after
+    such a read of a corrupt or empty file sometimes aborted in the pools' teardown
+    ("terminate called without an active exception", exit 134). The footer's uncompressed size is checked against ``max_bytes``
     first, so a small file cannot expand into memory without bound."""
     try:
-        meta = pq.ParquetFile(pa.BufferReader(data), pre_buffer=False).metadata
+        reader = pq.ParquetFile(pa.BufferReader(data), pre_buffer=False)
+        meta = reader.metadata
         expanded = sum(meta.row_group(i).total_byte_size for i in range(meta.num_row_groups))
         if max_bytes is not None and expanded > max_bytes:
             raise InputError(f"the Parquet data expand to {expanded:,} bytes, over the limit of "
                              f"{max_bytes:,} bytes (raise it with --max-bytes, or max_bytes= in Python)",
                              where=str(path))
-        return pq.read_table(pa.BufferReader(data), use_threads=False, pre_buffer=False)
+        return reader.read(use_threads=False)
     except InputError:
         raise
     except Exception as exc:  # noqa: BLE001 - untrusted bytes: any reader failure is bad input
