@@ -297,3 +297,11 @@ def test_hostile_names_reach_the_console_escaped(good_doc, tmp_path, capsys, nam
         bad = [c for c in text if (ord(c) < 32 and c != "\n") or 0x7f <= ord(c) < 0xa0 or 0xd800 <= ord(c) < 0xe000
                or c in "\u202e"]
         assert bad == [], repr(text)
+
+
+@pytest.mark.parametrize("args", [["networks"], ["powerflow", "ieee14"], ["opf", "ieee14"], ["opf", "ieee14", "--dc"]])
+def test_one_table_style_across_commands(args, capsys):
+    assert main(args) == 0
+    out = capsys.readouterr().out
+    assert " ────" in out  # a rule under the header, no frame (rich SIMPLE_HEAD)
+    assert not any(c in out for c in "┏┃│┡└")

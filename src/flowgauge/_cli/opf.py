@@ -4,12 +4,11 @@ from __future__ import annotations
 
 import click
 import numpy as np
-from rich.table import Table
 
 from ..errors import InputError
 from ..network import load_network
 from ..opf import solve_acopf, solve_dcopf
-from ._common import console, echo_json
+from ._common import console, echo_json, table
 
 __all__ = ["opf"]
 
@@ -54,17 +53,17 @@ def _print_summary(net, res, dc: bool) -> None:
     console.print(f"{kind} optimal power flow of {net.name}: {res.status} in {res.iterations} iterations "
                   f"({res.seconds * 1000:.0f} ms)")
     console.print(f"objective: {res.objective:,.2f} $/h")
-    table = Table(title="Generators")
+    tab = table(title="Generators")
     cols = ("gen", "bus", "pg_mw", "pmin_mw", "pmax_mw") + (() if dc else ("qg_mvar",))
     for col in cols:
-        table.add_column(col, justify="right")
+        tab.add_column(col, justify="right")
     for k in range(net.n_gen):
         row = [str(int(net.gen_id[k])), str(int(net.gen_bus[k])), f"{res.pg_mw[k]:.2f}",
                f"{net.pmin_mw[k]:.1f}", f"{net.pmax_mw[k]:.1f}"]
         if not dc:
             row.append(f"{res.qg_mvar[k]:.2f}")
-        table.add_row(*row)
-    console.print(table)
+        tab.add_row(*row)
+    console.print(tab)
     lo, hi = int(np.argmin(res.lmp_per_mwh)), int(np.argmax(res.lmp_per_mwh))
     console.print(f"locational marginal prices: {res.lmp_per_mwh[lo]:.2f} $/MWh (bus {int(net.bus_id[lo])}) "
                   f"to {res.lmp_per_mwh[hi]:.2f} $/MWh (bus {int(net.bus_id[hi])})")

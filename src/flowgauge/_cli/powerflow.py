@@ -4,13 +4,12 @@ from __future__ import annotations
 
 import click
 import numpy as np
-from rich.table import Table
 
 from ..errors import InputError
 from ..network import load_network
 from ..network._model import BUS_TYPE_NAMES
 from ..powerflow import solve_powerflow
-from ._common import console, echo_json
+from ._common import console, echo_json, table
 
 __all__ = ["powerflow"]
 
@@ -47,15 +46,15 @@ def _as_dict(net, res) -> dict:
 def _print_tables(net, res) -> None:
     console.print(f"Power flow of {net.name}: {res.status} in {res.iterations} iterations "
                   f"(largest mismatch {res.max_mismatch_pu:.2e} p.u.)")
-    table = Table(title="Buses")
+    tab = table(title="Buses")
     for col in ("bus", "type", "vm_pu", "va_deg"):
-        table.add_column(col, justify="right")
+        tab.add_column(col, justify="right")
     for i, t, v, a in zip(net.bus_id.tolist(), net.bus_type.tolist(), res.vm_pu.tolist(), res.va_deg.tolist()):
-        table.add_row(str(i), BUS_TYPE_NAMES.get(t, str(t)), f"{v:.4f}", f"{a:.3f}")
-    console.print(table)
+        tab.add_row(str(i), BUS_TYPE_NAMES.get(t, str(t)), f"{v:.4f}", f"{a:.3f}")
+    console.print(tab)
     gen_mw, load_mw = float(np.sum(res.pg_mw)), float(np.sum(net.pd_mw))
     gen_mvar, load_mvar = float(np.sum(res.qg_mvar)), float(np.sum(net.qd_mvar))
-    totals = Table(title="Totals")
+    totals = table(title="Totals")
     for col in ("", "MW", "MVAr"):
         totals.add_column(col, justify="right")
     totals.add_row("generation", f"{gen_mw:.2f}", f"{gen_mvar:.2f}")
