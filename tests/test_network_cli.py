@@ -29,7 +29,8 @@ def listing():
 
 
 def test_json_lists_every_bundled_network_demo_first(listing):
-    assert [r["name"] for r in listing] == ["demo", "ieee14", "ieee30", "ieee57", "ieee118", "ieee300"]
+    assert [r["name"] for r in listing] == ["demo", "ieee14", "ieee14-limits", "ieee30", "ieee30-limits", "ieee57",
+                                            "ieee57-limits", "ieee118", "ieee118-limits", "ieee300", "ieee300-limits"]
     for r in listing:
         assert {"name", "buses", "branches", "generators", "loads", "total_load_mw", "source"} <= set(r)
 

@@ -20,10 +20,15 @@ DATA_DIR = Path(__file__).parent / "data"
 
 
 def bundled_names() -> list[str]:
-    """Names of the bundled networks, demo first, then by size."""
+    """Names of the bundled networks, demo first, then by size, each limit variant right after
+    its original (``ieee14``, ``ieee14-limits``, ...)."""
     names = [p.stem for p in DATA_DIR.glob("*.json")]
     order = {"demo": 0, "ieee14": 1, "ieee30": 2, "ieee57": 3, "ieee118": 4, "ieee300": 5}
-    return sorted(names, key=lambda n: (order.get(n, 99), n))
+
+    def key(n: str):
+        base = n.removesuffix("-limits")
+        return (order.get(base, 99), base, n != base, n)
+    return sorted(names, key=key)
 
 
 def load_network(spec: str | Path) -> Network:
