@@ -113,7 +113,8 @@ def _run(p, pv, pq, vm0, va0, sbus, tol, max_iter, linear, hold=None):
     n_s = sbus.shape[0]
     if n_s <= rows:
         return newton(pat, p.adm.ybus, vm0, va0, sbus, tol, int(max_iter), linear, hold)
-    parts = [newton(pat, p.adm.ybus, vm0[i:i + rows], va0[i:i + rows], sbus[i:i + rows], tol,
+    tols = np.broadcast_to(np.asarray(tol, dtype=float), (n_s,))
+    parts = [newton(pat, p.adm.ybus, vm0[i:i + rows], va0[i:i + rows], sbus[i:i + rows], tols[i:i + rows],
                     int(max_iter), linear, None if hold is None else hold[i:i + rows])
              for i in range(0, n_s, rows)]  # loop over chunks of samples
     return tuple(np.concatenate([part[k] for part in parts]) for k in range(5))

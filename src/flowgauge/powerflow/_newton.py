@@ -161,12 +161,13 @@ def newton(pat: JacobianPattern, ybus: sp.csr_matrix, vm: np.ndarray, va: np.nda
     ``hold`` (S, len(pat.pq)) bool, optional: per sample, the buses of ``pat.pq`` whose
     voltage magnitude is held at its start value (PV buses of that sample, solved in the
     pattern where every non-reference bus is PQ; see :func:`_hold_voltage`).
-    Converged when ``max |mismatch| < tol`` [p.u.]. Returns ``(vm, va, iterations,
-    status, max_mismatch)`` with status names from ``STATUSES``.
+    Converged when ``max |mismatch| < tol`` [p.u.] (a number, or one per sample). Returns
+    ``(vm, va, iterations, status, max_mismatch)`` with status names from ``STATUSES``.
     """
     solve = LINEAR_SOLVERS[linear]
     vm, va = np.array(vm, dtype=float), np.array(va, dtype=float)
     n_s = vm.shape[0]
+    tol_all = np.broadcast_to(np.asarray(tol, dtype=float), (n_s,))  # one tolerance per sample
     pvpq, pq, npvpq = pat.pvpq, pat.pq, pat.pvpq.size
     hold_a = hold
     iterations = np.zeros(n_s, np.int64)
@@ -185,7 +186,7 @@ def newton(pat: JacobianPattern, ybus: sp.csr_matrix, vm: np.ndarray, va: np.nda
             finite = np.isfinite(norm) & np.isfinite(vm_a).all(axis=1) & np.isfinite(va_a).all(axis=1)
             max_mis[active] = np.where(finite, norm, np.inf)
             iterations[active] = it
-            done = finite & (norm < tol)
+            done = finite & (norm < tol_all[active])
             keep = finite & ~done
             code[active[done]] = _CODE[CONVERGED]
             code[active[~finite]] = _CODE[DIVERGED]

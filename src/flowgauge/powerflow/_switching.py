@@ -86,11 +86,15 @@ def run_switching(p: Prepared, run, pg, qg_set, pd, qd, vm, va, max_rounds: int 
     rounds = np.zeros(n_s, np.int64)
     final = np.zeros(n_s, bool)  # the current solution is at ``tol`` (else at ``loose``)
 
+    ever_held = np.zeros(p.pv.size, bool)
+
     def solve(rows, tolerance):
-        """Solve samples ``rows`` from their current voltages in one pattern: PQ = the
-        network's PQ buses and every PV bus held in any of these samples; in each sample the
+        """Solve samples ``rows`` from their current voltages, each to its own ``tolerance``, in
+        one pattern: PQ = the network's PQ buses and every PV bus held so far in any sample of
+        this call (the set only grows, so a call builds few patterns); in each sample the
         reactive rows of those buses it does not hold keep their voltage (``hold``)."""
-        union = p.pv[(limit[rows] != 0).any(axis=0)]
+        ever_held[:] |= (limit[rows] != 0).any(axis=0)
+        union = p.pv[ever_held]
         sb = bus_injection_setpoints(p, pg[rows], qg_set[rows], pd[rows], qd[rows])
         if union.size == 0:
             out = run(p.pv, p.pq, vm[rows], va[rows], sb, None, tolerance)
@@ -138,10 +142,13 @@ def run_switching(p: Prepared, run, pg, qg_set, pd, qd, vm, va, max_rounds: int 
             vm[s] = vm_s
             g_lim = np.where(at_pv[None, :], new[:, np.maximum(gpos, 0)], 0)
             qg_set[s] = np.where(g_lim == 1, net.qmax_mvar, np.where(g_lim == -1, net.qmin_mvar, qg_set[s]))
-            solve(s, loose)
-            final[s] = loose <= tol
-        if polish.size:
-            solve(polish, tol)
-            final[polish] = True
+        # one solve for both: switched samples to the decision tolerance, the others to the final
+        rows = np.concatenate([s, polish])
+        order = np.argsort(rows, kind="stable")
+        rows = rows[order]
+        tolerance = np.concatenate([np.full(s.size, loose), np.full(polish.size, tol)])[order]
+        if rows.size:
+            solve(rows, tolerance)
+            final[rows] = tolerance <= tol
     held = np.where(at_pv[None, :], limit[:, np.maximum(gpos, 0)], 0).astype(np.int8)
     return vm, va, its, status, mis, qg_set, held

@@ -116,9 +116,9 @@ REACTIVE_LIMITS_PROFILE = ScoringProfile(
         "angle_deg": 0.1,
     }),
     # As strict, plus reactive-limit enforcement: PV buses switch to PQ at a violated reactive
-    # limit and back (docs/powerflow.md), at most 10 rounds.
+    # limit and back (docs/powerflow.md), at most 10 rounds; samples solved in chunks of 256.
     powerflow=MappingProxyType({"start": "dc", "tolerance_pu": 1e-8, "max_iterations": 20,
-                                "enforce_q_limits": True, "max_switch_rounds": 10}),
+                                "enforce_q_limits": True, "max_switch_rounds": 10, "chunk_samples": 256}),
     bootstrap=MappingProxyType({"resamples": 2000, "seed": 20261201, "level": 0.95}),
     grading=MappingProxyType({
         # the failure rate is also reported with every tolerance multiplied by these

@@ -7,7 +7,9 @@ from those voltages with angles from a DC power flow of the predicted injections
 Newton-Raphson to 1e-8 p.u. in at most 20 iterations (the profile records both): no fallback,
 no clipping of the setpoints.
 
-Samples are solved in fixed chunks of :data:`CHUNK_SAMPLES`, in order, whatever the number of
+Samples are solved in fixed chunks of :data:`CHUNK_SAMPLES` (or the profile's ``chunk_samples``:
+256 with reactive-limit enforcement, whose rounds cost a fixed overhead per Newton step that a
+larger chunk spreads over more samples), in order, whatever the number of
 workers or the Dask cluster, so the results are the same bytes however they are spread.
 """
 
@@ -113,8 +115,8 @@ def solve_restoration_chunk(net: Network, pd_mw, qd_mvar, pg_mw, vm_pu, powerflo
     return out
 
 
-def _chunks(n: int) -> list[slice]:
-    return [slice(i, min(i + CHUNK_SAMPLES, n)) for i in range(0, n, CHUNK_SAMPLES)]
+def _chunks(n: int, size: int = CHUNK_SAMPLES) -> list[slice]:
+    return [slice(i, min(i + size, n)) for i in range(0, n, size)]
 
 
 # The network of this worker process, set once by the pool's initializer so that the power
@@ -145,7 +147,7 @@ def _connect(scheduler: str):
 
 def _run_chunks(net, arrays, powerflow, workers, scheduler, progress) -> list[dict]:
     n = arrays[0].shape[0]
-    pieces = _chunks(n)
+    pieces = _chunks(n, int(powerflow.get("chunk_samples", CHUNK_SAMPLES)))
     parts = [tuple(a[s] for a in arrays) for s in pieces]
     out: list[dict] = []
 
