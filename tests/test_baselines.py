@@ -114,3 +114,16 @@ def test_dc_opf_prediction_shape_and_setpoints(splits):
     # The DC power flow is lossless (common practice): generation equals load in every sample.
     np.testing.assert_allclose(pred.pg_mw.sum(axis=1), sp.pd_mw.sum(axis=1), rtol=1e-6)
     assert pred.va_deg is None and pred.qg_mvar is None
+
+
+def test_dc_opf_baseline_falls_back_where_the_dc_model_is_infeasible():
+    from flowgauge.baselines import dc_opf
+    from flowgauge.network import load_network
+    net = load_network("demo")
+    # 19 MW of load against 20 MW of summed minimum outputs (demo's two must-run units): the
+    # lossless DC balance has no solution, so every generator sits at its minimum (hand check:
+    # the closest dispatch the limits allow)
+    pd = net.pd_mw * (19.0 / net.pd_mw.sum())
+    pred = dc_opf(net, pd[None, :], np.array([0]))
+    np.testing.assert_allclose(pred.pg_mw[0], net.pmin_mw)
+    assert net.pmin_mw.sum() == pytest.approx(20.0)

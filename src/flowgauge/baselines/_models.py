@@ -43,19 +43,37 @@ def network_voltage_setpoints(net: Network) -> np.ndarray:
     return np.clip(vm, net.vmin_pu, net.vmax_pu)
 
 
+def _bounded_dispatch(net: Network, load_mw: float) -> np.ndarray:
+    """Every generator at the same share of its range that matches ``load_mw`` as closely as the
+    limits allow: all at minimum below the summed minimum (a light loading the lossless DC model
+    cannot balance while the AC network, with its losses, can), all at maximum above the sum."""
+    lo, hi = np.asarray(net.pmin_mw, float), np.asarray(net.pmax_mw, float)
+    span = float(np.sum(hi - lo))
+    share = 0.0 if span <= 0 else min(1.0, max(0.0, (load_mw - float(np.sum(lo))) / span))
+    return lo + share * (hi - lo)
+
+
 def dc_opf(net: Network, pd_mw: np.ndarray, sample_id: np.ndarray, progress=None) -> Prediction:
-    """The DC-OPF dispatch of each sample, with the network's voltage setpoints (within limits).
-    ``progress(done, total)`` is called after each sample, if given."""
+    """The DC-OPF dispatch of each sample, with the network's voltage setpoints (within limits);
+    where the DC-OPF is infeasible, the same without branch and angle limits (an economic
+    dispatch), and where that is infeasible too, :func:`_bounded_dispatch`. ``progress(done,
+    total)`` is called after each sample, if given."""
     from ..opf import solve_dcopf
 
     pd = np.asarray(pd_mw, float)
     pg = np.empty((pd.shape[0], net.n_gen))
+    # Where the DC model has no feasible dispatch (a loading the AC network carries can break the
+    # DC model's branch or angle limits), the baseline drops the branch limits: an economic
+    # dispatch of the same generators and costs.
+    unlimited = net.replace(rate_mva=np.full(net.n_branch, np.nan), angmin_deg=np.full(net.n_branch, -360.0),
+                            angmax_deg=np.full(net.n_branch, 360.0))
     for i in range(pd.shape[0]):  # one linear programme per sample
         res = solve_dcopf(net, pd_mw=pd[i])
+        if str(res.status) != "converged":
+            res = solve_dcopf(unlimited, pd_mw=pd[i])
         out = np.asarray(res.pg_mw, float)
         if str(res.status) != "converged" or not np.all(np.isfinite(out)):
-            raise InputError(f"the DC-OPF has no solution for this sample (status {res.status})",
-                             where=f"sample_id {int(sample_id[i])}")
+            out = _bounded_dispatch(net, float(pd[i].sum()))
         pg[i] = out
         if progress is not None:
             progress(i + 1, pd.shape[0])
