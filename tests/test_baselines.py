@@ -127,3 +127,16 @@ def test_dc_opf_baseline_falls_back_where_the_dc_model_is_infeasible():
     pred = dc_opf(net, pd[None, :], np.array([0]))
     np.testing.assert_allclose(pred.pg_mw[0], net.pmin_mw)
     assert net.pmin_mw.sum() == pytest.approx(20.0)
+
+
+def test_linear_outputs_stay_within_the_limits_far_outside_training():
+    from flowgauge.baselines._models import linear
+    from flowgauge.splits import load_split
+    train = load_split("ieee14", "train")
+    net = train.network
+    # five times the heaviest training loading: a linear map extrapolates far past every limit
+    big = train.pd_mw[np.argmax(train.pd_mw.sum(axis=1))] * 5.0
+    pred = linear(train, big[None, :], (net.qd_mvar * 5.0)[None, :])
+    assert np.all(pred.vm_pu >= net.vmin_pu) and np.all(pred.vm_pu <= net.vmax_pu)
+    assert np.all(pred.pg_mw >= net.pmin_mw) and np.all(pred.pg_mw <= net.pmax_mw)
+    assert np.all(np.abs(pred.va_deg) <= 180.0)

@@ -107,7 +107,8 @@ def nearest(train, pd_mw, qd_mvar) -> Prediction:
 
 def linear(train, pd_mw, qd_mvar, *, alpha: float = RIDGE_ALPHA) -> Prediction:
     """Ridge regression from the standardised loads to ``pg_mw``, ``vm_pu``, ``va_deg`` and
-    ``qg_mvar``, fitted on the training split (closed form, intercept not penalised)."""
+    ``qg_mvar``, fitted on the training split (closed form, intercept not penalised); outputs
+    projected onto the elements' limits (angles onto +-180 degrees)."""
     x = _features(train.pd_mw, train.qd_mvar)
     y, cuts = _targets(train.references)
     mu, sd = x.mean(axis=0), x.std(axis=0)
@@ -116,4 +117,14 @@ def linear(train, pd_mw, qd_mvar, *, alpha: float = RIDGE_ALPHA) -> Prediction:
     ymu = y.mean(axis=0)
     w = np.linalg.solve(z.T @ z + alpha * np.eye(z.shape[1]), z.T @ (y - ymu))
     zq = (_features(pd_mw, qd_mvar) - mu) / sd
-    return _unpack(zq @ w + ymu, cuts)
+    pred = _unpack(zq @ w + ymu, cuts)
+    # far outside the training loadings a linear map extrapolates past every limit (even to
+    # negative voltages): outputs are projected onto their elements' limits, as regression
+    # proxies commonly are
+    net = getattr(train, "network", None)
+    if net is None:  # arrays without a network: nothing to project onto
+        return pred
+    return Prediction(pg_mw=np.clip(pred.pg_mw, net.pmin_mw, net.pmax_mw),
+                      vm_pu=np.clip(pred.vm_pu, net.vmin_pu, net.vmax_pu),
+                      va_deg=np.clip(pred.va_deg, -180.0, 180.0),
+                      qg_mvar=np.clip(pred.qg_mvar, net.qmin_mvar, net.qmax_mvar))

@@ -17,7 +17,7 @@ BASELINES: dict[str, tuple[bool, str]] = {
     "nearest": (True, "Reference solution of the training sample with the nearest loads "
                       "(Euclidean distance in MW and MVAr)."),
     "linear": (True, "Ridge regression from standardised loads to pg_mw, vm_pu, va_deg and qg_mvar, "
-                     "fitted on the train split (alpha 1.0)."),
+                     "fitted on the train split (alpha 1.0); outputs projected onto their limits."),
 }
 
 
