@@ -2,16 +2,24 @@
 that used more than the training split, and boards that would mix two scoring profiles."""
 
 import json
-import shutil
 from pathlib import Path
 
-import pytest
 
 from flowgauge.cli import main
 from flowgauge.scoring import score
 
 ROOT = Path(__file__).resolve().parents[1]
-COMMITTED = ROOT / "leaderboard" / "submissions" / "ieee14" / "test-id"
+
+
+def _baseline_json(name: str, folder: Path) -> Path:
+    """A baseline's predictions for the frozen ieee14 test-id split, as JSON."""
+    from flowgauge.baselines import write_baseline
+    from flowgauge.splits import load_split
+    out = folder / f"{name}.json"
+    if not out.exists():
+        folder.mkdir(parents=True, exist_ok=True)
+        write_baseline(name, load_split("ieee14", "test-id"), out, train=load_split("ieee14", "train"))
+    return out
 
 RULES = """format = "flowgauge-rules"
 format_version = 1
@@ -40,7 +48,7 @@ def _board(tmp_path, rules=RULES, extra_data=("nearest",)):
     (board / "submissions").mkdir(parents=True)
     (board / "rules.toml").write_text(rules)
     for name in ("linear", "nearest"):
-        doc = json.loads((COMMITTED / f"{name}.json").read_text())
+        doc = json.loads(_baseline_json(name, tmp_path / "made").read_text())
         doc["model"]["training_data_only"] = name not in extra_data
         (board / "submissions" / f"{name}.json").write_text(json.dumps(doc))
     return board
@@ -74,7 +82,7 @@ def test_scorecards_of_two_profiles_are_not_ranked_together(tmp_path, capsys):
     board = _board(tmp_path, extra_data=())
     # a listed submission whose file is absent is ranked from its committed scorecard: one made
     # with the strict profile cannot join a reactive-limits board
-    src = COMMITTED / "dc-opf.json"
+    src = _baseline_json("dc-opf", tmp_path / "made")
     card = score(src, profile="strict")
     listed = {"path": "elsewhere/dc-opf.json", "predictions_hash": card.header["predictions_hash"]}
     (board / "submissions" / "external.toml").write_text(

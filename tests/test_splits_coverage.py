@@ -15,7 +15,6 @@ from flowgauge.cli import main
 from flowgauge.splits import build_split, load_split, summarize_split
 
 ROOT = Path(__file__).resolve().parents[1]
-COMMITTED = ROOT / "leaderboard" / "submissions" / "ieee14" / "test-id"
 
 # Limit family of each label suffix ("<bus|gen|branch>:<id>:<limit>"), the grouping of the trade
 # (common practice): bus voltage, generator active and reactive output, branch thermal rating,
@@ -130,7 +129,9 @@ def _board(path: Path) -> Path:
     (board / "submissions").mkdir(parents=True)
     rules = (ROOT / "tests" / "test_leaderboard_profile2.py").read_text().split('RULES = """')[1].split('"""')[0]
     (board / "rules.toml").write_text(rules)
-    shutil.copy(COMMITTED / "linear.json", board / "submissions" / "linear.json")
+    from flowgauge.baselines import write_baseline
+    write_baseline("linear", load_split("ieee14", "test-id"), board / "submissions" / "linear.json",
+                   train=load_split("ieee14", "train"))
     return board
 
 

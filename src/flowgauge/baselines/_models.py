@@ -11,7 +11,6 @@ from dataclasses import dataclass
 import numpy as np
 from scipy.spatial import cKDTree
 
-from ..errors import InputError
 from ..network import Network
 
 __all__ = ["Prediction", "dc_opf", "nearest", "linear", "network_voltage_setpoints", "RIDGE_ALPHA"]
