@@ -52,7 +52,7 @@ from numpy.random import PCG64, Generator
 
 from flowgauge import __version__
 from flowgauge._io import atomic_write_text
-from flowgauge.network import load_network, to_ppc
+from flowgauge.network import load_network, to_ppc, to_ppc_for_pandapower
 from flowgauge import load_split
 from flowgauge.scoring import (DEFAULT_PROFILE, REACTIVE_LIMITS_PROFILE, STRICT_PROFILE, generator_cost_per_h,
                                restore, score_arrays)
@@ -89,32 +89,12 @@ def time_scoring(net, samples: int, repeat: int, seed: int, workers: int) -> dic
             "restoration_diverged_share": agg["restoration_failure_causes"]["diverged"]}
 
 
-def faithful_ppc(net) -> dict:
-    """``to_ppc(net)`` written so that pandapower's ``from_ppc`` keeps the case (module docstring):
-    a kV level on every bus, tapped branches from the higher-voltage bus."""
-    ppc = to_ppc(net)
-    ppc["bus"][:, 9] = np.where(ppc["bus"][:, 9] > 0, ppc["bus"][:, 9], 100.0)  # pandapower needs a kV level
-    br = ppc["branch"]
-    kv = dict(zip(ppc["bus"][:, 0], ppc["bus"][:, 9]))
-    f_kv = np.array([kv[b] for b in br[:, 0]])
-    t_kv = np.array([kv[b] for b in br[:, 1]])
-    flip = (br[:, 8] != 0) & (f_kv < t_kv)
-    tap = br[flip, 8]
-    br[flip, 0], br[flip, 1] = br[flip, 1].copy(), br[flip, 0].copy()
-    br[flip, 2] *= tap ** 2
-    br[flip, 3] *= tap ** 2
-    br[flip, 4] /= tap ** 2
-    br[flip, 8] = 1.0 / tap
-    br[flip, 9] *= -1.0
-    return ppc
-
-
 def pandapower_net(net):
     from pandapower.converter.pypower import from_ppc
 
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
-        return from_ppc(faithful_ppc(net), f_hz=60, validate_conversion=False)
+        return from_ppc(to_ppc_for_pandapower(net), f_hz=60, validate_conversion=False)
 
 
 class PandapowerCase:

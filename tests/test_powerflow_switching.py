@@ -17,7 +17,7 @@ import numpy as np
 import pytest
 
 import flowgauge
-from flowgauge.network import Network, to_ppc
+from flowgauge.network import Network, to_ppc_for_pandapower
 from flowgauge.powerflow import solve_powerflow, solve_powerflow_batch
 from flowgauge.scoring import REACTIVE_LIMITS_PROFILE, restore
 
@@ -26,30 +26,6 @@ pp = pytest.importorskip("pandapower")
 
 # ---------------------------------------------------------------------------------------------
 # pandapower, built faithfully from the same case data
-
-
-def faithful_ppc(net) -> dict:
-    """``to_ppc(net)`` written so that pandapower's ``from_ppc`` keeps the case.
-
-    pandapower puts a transformer's off-nominal tap on its higher-voltage side; the case data
-    (PYPOWER convention) put it at the branch's from end. A tapped branch whose from bus has the
-    lower base voltage is therefore written reversed: impedance times tap^2, charging over
-    tap^2, tap 1/tap, shift negated, which is the same branch admittance matrix (hand: the
-    from-end self admittance (y + jb/2)/t^2 becomes the new to-end's y' + jb'/2 = (y + jb/2)/t^2,
-    the mutual -y/t becomes -y'/t' = -(y/t^2) t). Buses without a base voltage get 100 kV."""
-    ppc = to_ppc(net)
-    ppc["bus"][:, 9] = np.where(ppc["bus"][:, 9] > 0, ppc["bus"][:, 9], 100.0)
-    br = ppc["branch"]
-    kv = dict(zip(ppc["bus"][:, 0], ppc["bus"][:, 9]))
-    flip = (br[:, 8] != 0) & (np.array([kv[b] for b in br[:, 0]]) < np.array([kv[b] for b in br[:, 1]]))
-    tap = br[flip, 8]
-    br[flip, 0], br[flip, 1] = br[flip, 1].copy(), br[flip, 0].copy()
-    br[flip, 2] *= tap ** 2
-    br[flip, 3] *= tap ** 2
-    br[flip, 4] /= tap ** 2
-    br[flip, 8] = 1.0 / tap
-    br[flip, 9] *= -1.0
-    return ppc
 
 
 class Pandapower:
@@ -63,7 +39,7 @@ class Pandapower:
             warnings.simplefilter("ignore")
             logging.disable(logging.WARNING)
             try:
-                self.pn = from_ppc(faithful_ppc(net), f_hz=60, validate_conversion=False)
+                self.pn = from_ppc(to_ppc_for_pandapower(net), f_hz=60, validate_conversion=False)
             finally:
                 logging.disable(logging.NOTSET)
         ref = np.isin(net.gen_bus_idx, net.ref_idx)

@@ -8,12 +8,12 @@ from pathlib import Path
 from ..errors import InputError
 from ._json import network_from_dict, network_to_dict, read_network_json, write_network_json
 from ._model import BUS_PQ, BUS_PV, BUS_REF, Network
-from ._ppc import to_ppc
+from ._ppc import to_ppc, to_ppc_for_pandapower
 
 __all__ = [
     "Network", "BUS_PQ", "BUS_PV", "BUS_REF",
     "load_network", "bundled_names", "network_from_dict", "network_to_dict",
-    "read_network_json", "write_network_json", "synthetic", "read_cdf", "to_ppc",
+    "read_network_json", "write_network_json", "synthetic", "read_cdf", "to_ppc", "to_ppc_for_pandapower",
 ]
 
 DATA_DIR = Path(__file__).parent / "data"

@@ -11,7 +11,7 @@ import numpy as np
 
 from ._model import Network
 
-__all__ = ["to_ppc"]
+__all__ = ["to_ppc", "to_ppc_for_pandapower"]
 
 
 def to_ppc(net: Network, pd_mw: np.ndarray | None = None, qd_mvar: np.ndarray | None = None) -> dict:
@@ -68,3 +68,31 @@ def to_ppc(net: Network, pd_mw: np.ndarray | None = None, qd_mvar: np.ndarray | 
     gencost[:, 6] = np.nan_to_num(net.cost_c0)
     return {"version": "2", "baseMVA": float(net.base_mva), "bus": bus, "gen": gen, "branch": branch,
             "gencost": gencost}
+
+
+def to_ppc_for_pandapower(net: Network, pd_mw: np.ndarray | None = None,
+                          qd_mvar: np.ndarray | None = None) -> dict:
+    """:func:`to_ppc`, written so that pandapower's ``converter.from_ppc`` keeps the case.
+
+    pandapower puts a transformer's off-nominal tap on its higher-voltage side; the case data
+    (PYPOWER convention) put it at the branch's from end. A tapped branch whose from bus has the
+    lower base voltage is therefore written reversed: impedance times tap^2, charging over
+    tap^2, tap 1/tap, shift negated, which is the same branch admittance matrix (hand: the
+    from-end self admittance (y + jb/2)/t^2 becomes the new to-end's y' + jb'/2 = (y + jb/2)/t^2,
+    the mutual -y/t becomes -y'/t' = -(y/t^2) t). Buses without a base voltage get 100 kV
+    (pandapower needs a voltage level). Run pandapower with ``trafo_model="pi"``, the case
+    data's model.
+    """
+    ppc = to_ppc(net, pd_mw, qd_mvar)
+    ppc["bus"][:, 9] = np.where(ppc["bus"][:, 9] > 0, ppc["bus"][:, 9], 100.0)
+    br = ppc["branch"]
+    kv = dict(zip(ppc["bus"][:, 0], ppc["bus"][:, 9]))
+    flip = (br[:, 8] != 0) & (np.array([kv[b] for b in br[:, 0]]) < np.array([kv[b] for b in br[:, 1]]))
+    tap = br[flip, 8]
+    br[flip, 0], br[flip, 1] = br[flip, 1].copy(), br[flip, 0].copy()
+    br[flip, 2] *= tap ** 2
+    br[flip, 3] *= tap ** 2
+    br[flip, 4] /= tap ** 2
+    br[flip, 8] = 1.0 / tap
+    br[flip, 9] *= -1.0
+    return ppc
