@@ -31,7 +31,7 @@ import numpy as np
 
 from ..network import Network
 
-__all__ = ["GRADED_FAMILIES", "generator_rating_mva", "element_excess", "tolerance_ratios", "severity", "failure_at_multiples",
+__all__ = ["GRADED_FAMILIES", "generator_rating_mva", "element_excess", "tolerance_ratios", "severity", "worst_ratio", "failure_at_multiples",
            "solved_shares"]
 
 GRADED_FAMILIES = ("active_power", "reactive_power", "voltage", "thermal", "angle")
@@ -113,14 +113,21 @@ def severity(excess: dict, converged: np.ndarray) -> np.ndarray:
     return out
 
 
-def failure_at_multiples(ratios: dict[str, np.ndarray], hard_fail: np.ndarray, multiples) -> np.ndarray:
-    """Failure indicator (n_multiples, S): a hard failure, or some family's tolerance ratio above
-    the multiple."""
-    worst = np.zeros(hard_fail.shape[0])
-    for r in ratios.values():
-        worst = np.maximum(worst, np.nan_to_num(r, nan=0.0))
-    m = np.asarray(multiples, float)[:, None]
-    return hard_fail[None, :] | (worst[None, :] > m)
+def worst_ratio(ratios: dict[str, np.ndarray]) -> np.ndarray:
+    """The largest tolerance ratio over the families per sample, shape (S,); NaN where no family
+    was evaluated (a restoration that did not converge)."""
+    stacked = np.stack(list(ratios.values()))
+    out = np.full(stacked.shape[1], np.nan)
+    seen = np.isfinite(stacked).any(axis=0)
+    out[seen] = np.nanmax(stacked[:, seen], axis=0)
+    return out
+
+
+def failure_at_multiples(worst: np.ndarray, hard_fail: np.ndarray, multiples) -> np.ndarray:
+    """Failure indicator (n_multiples, S): a hard failure, or a worst tolerance ratio (``worst``,
+    NaN counting as 0) above the multiple."""
+    w = np.nan_to_num(np.asarray(worst, float), nan=0.0)
+    return np.asarray(hard_fail, bool)[None, :] | (w[None, :] > np.asarray(multiples, float)[:, None])
 
 
 def solved_shares(failed: np.ndarray, restored_gap_pct: np.ndarray, thresholds_pct) -> np.ndarray:

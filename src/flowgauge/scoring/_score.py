@@ -17,7 +17,7 @@ from ._metrics import (active_balance_residual_mw, angle_difference_violation_de
                        bound_violation, branch_flows_mva, generator_cost_per_h, optimality_gap_pct,
                        thermal_overload_mva, thermal_overload_pct)
 from ._profile import ScoringProfile, get_profile
-from ._grading import element_excess, failure_at_multiples, solved_shares, tolerance_ratios
+from ._grading import element_excess, failure_at_multiples, solved_shares, tolerance_ratios, worst_ratio
 from ._restoration import causes_of, restore
 from ._scorecard import FORMAT_NAME, FORMAT_VERSION, GRADED_FORMAT_VERSION, Scorecard
 
@@ -159,30 +159,18 @@ def _aggregates(table: pd.DataFrame, fams: dict, viol: dict, restoration, ref_ms
 
 
 def _graded_aggregates(table: pd.DataFrame, restoration, profile) -> dict:
-    """Aggregates of profiles with grading: severity, switched generators, the tolerance curve,
-    the solved share and its curve, and their bootstrap intervals."""
+    """Aggregates of profiles with grading: severity, the tolerance curve, the solved share and
+    its curve (as for any group of samples), switched generators and the bootstrap intervals."""
     g = profile.grading
-    n = len(table)
-    multiples = list(g["tolerance_multiples"])
-    thresholds = list(g["solved_thresholds_pct"])
-    fails = failure_at_multiples(restoration.ratios, restoration.causes["diverged"] | restoration.causes["switching"],
-                                 multiples)
-    gap = table["restored_gap_pct"].to_numpy()
-    shares = solved_shares(restoration.failed, gap, thresholds)
     boot = profile.bootstrap
     ci = bootstrap_ci({"severity_mean": restoration.severity, "solved_share": table["solved"].to_numpy(float)},
                       resamples=int(boot["resamples"]), seed=int(boot["seed"]), level=float(boot["level"]))
     switched = summary_stats(restoration.switched_generators.astype(float))
+    every = _group_aggregates(table, np.ones(len(table), bool), profile)
     return {
-        "severity": None if n == 0 else {k: float(v) for k, v in (
-            ("mean", restoration.severity.mean()), ("p95", np.percentile(restoration.severity, 95)),
-            ("max", restoration.severity.max()))},
+        **{k: every[k] for k in ("severity", "tolerance_curve", "solved_share", "solved_curve")},
         "switched_generators": None if switched is None else {"mean": switched["mean"], "max": switched["max"]},
-        "tolerance_curve": {"multiples": multiples,
-                            "failure_rate": [float(x) for x in fails.mean(axis=1)] if n else None},
-        "solved_share": float(table["solved"].mean()) if n else None,
         "solved_threshold_pct": float(g["solved_threshold_pct"]),
-        "solved_curve": {"thresholds_pct": thresholds, "share": [float(x) for x in shares] if n else None},
         "ci95_graded": ci,
     }
 
@@ -196,7 +184,6 @@ def _group_aggregates(table: pd.DataFrame, mask: np.ndarray, profile) -> dict:
     g = profile.grading
     failed = t["restoration_failed"].to_numpy(bool)
     hard = (t["cause_diverged"] | t["cause_switching"]).to_numpy(bool)
-    ratio = np.nan_to_num(t["tolerance_ratio"].to_numpy(float), nan=0.0)
     sev = t["severity"].to_numpy(float)
     multiples = list(g["tolerance_multiples"])
     thresholds = list(g["solved_thresholds_pct"])
@@ -212,8 +199,8 @@ def _group_aggregates(table: pd.DataFrame, mask: np.ndarray, profile) -> dict:
         "solved_share": float(t["solved"].mean()) if n else None,
         "solved_curve": {"thresholds_pct": thresholds, "share": [float(x) for x in solved_shares(
             failed, t["restored_gap_pct"].to_numpy(float), thresholds)] if n else None},
-        "tolerance_curve": {"multiples": multiples, "failure_rate": [float(x) for x in (
-            hard[None, :] | (ratio[None, :] > np.asarray(multiples)[:, None])).mean(axis=1)] if n else None},
+        "tolerance_curve": {"multiples": multiples, "failure_rate": [float(x) for x in failure_at_multiples(
+            t["tolerance_ratio"].to_numpy(float), hard, multiples).mean(axis=1)] if n else None},
     }
 
 
@@ -301,9 +288,8 @@ def score_arrays(net: Network, *, sample_id, pd_mw, qd_mvar, reference_cost_per_
     })
     aggregates = _aggregates(table, fams, viol, rest, reference_solve_ms, prof)
     if prof.grading is not None:
-        worst = np.nanmax(np.stack(list(rest.ratios.values())), axis=0, initial=0.0)
         table["switched_generators"] = rest.switched_generators
-        table["tolerance_ratio"] = np.where(conv, worst, np.nan)
+        table["tolerance_ratio"] = np.where(conv, worst_ratio(rest.ratios), np.nan)
         table["severity"] = rest.severity
         limit = float(prof.grading["solved_threshold_pct"])
         table["solved"] = ~rest.failed & (np.abs(np.nan_to_num(restored_gap, nan=np.inf)) <= limit)

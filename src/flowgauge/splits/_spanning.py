@@ -259,13 +259,13 @@ class Outside:
             w = _base_weights(net) * rng.gamma(k, 1.0 / k, net.n_load)
             pf = rng.uniform(s.power_factor[0], s.power_factor[1], net.n_load)
             return s._along(net, w, pf, float(rng.uniform(*s.fraction)), solver, kind)
-        w, pf = s._direction(net, rng)
-        if kind == "power-factor":
-            lead = rng.random(net.n_load) < 0.5
-            pf = np.where(lead, rng.uniform(*self.leading_power_factor, net.n_load),
-                          rng.uniform(*self.low_power_factor, net.n_load))
-            return s._along(net, w, pf, float(rng.uniform(*s.fraction)), solver, kind, leading=lead)
-        raise AssertionError(kind)  # every kind is handled above
+        # power-factor: a spanning direction (its drawn power factors replaced, the draws kept in
+        # this order so that the frozen splits rebuild)
+        w, _ = s._direction(net, rng)
+        lead = rng.random(net.n_load) < 0.5
+        pf = np.where(lead, rng.uniform(*self.leading_power_factor, net.n_load),
+                      rng.uniform(*self.low_power_factor, net.n_load))
+        return s._along(net, w, pf, float(rng.uniform(*s.fraction)), solver, kind, leading=lead)
 
     def check(self, loading: Loading, res) -> str | None:
         """Rejection reason after the reference is solved (None: keep)."""
