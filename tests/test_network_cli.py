@@ -30,7 +30,8 @@ def listing():
 
 def test_json_lists_every_bundled_network_demo_first(listing):
     assert [r["name"] for r in listing] == ["demo", "ieee14", "ieee14-limits", "ieee30", "ieee30-limits", "ieee57",
-                                            "ieee57-limits", "ieee118", "ieee118-limits", "ieee300", "ieee300-limits"]
+                                            "ieee57-limits", "ieee118", "ieee118-limits", "ieee300", "ieee300-limits",
+                                            "activsg200", "pegase1354", "activsg2000", "pegase2869"]
     for r in listing:
         assert {"name", "buses", "branches", "generators", "loads", "total_load_mw", "source"} <= set(r)
 

@@ -1,5 +1,5 @@
-"""Networks: the :class:`Network` type, our JSON format, IEEE Common Data Format import,
-bundled networks and the synthetic network generator."""
+"""Networks: the :class:`Network` type, our JSON format, IEEE Common Data Format and MATPOWER
+case format import, bundled networks and the synthetic network generator."""
 
 from __future__ import annotations
 
@@ -13,17 +13,20 @@ from ._ppc import to_ppc, to_ppc_for_pandapower
 __all__ = [
     "Network", "BUS_PQ", "BUS_PV", "BUS_REF",
     "load_network", "bundled_names", "network_from_dict", "network_to_dict",
-    "read_network_json", "write_network_json", "synthetic", "read_cdf", "to_ppc", "to_ppc_for_pandapower",
+    "read_network_json", "write_network_json", "synthetic", "read_cdf", "read_matpower", "write_matpower",
+    "to_ppc", "to_ppc_for_pandapower",
 ]
 
 DATA_DIR = Path(__file__).parent / "data"
 
 
 def bundled_names() -> list[str]:
-    """Names of the bundled networks, demo first, then by size, each limit variant right after
-    its original (``ieee14``, ``ieee14-limits``, ...)."""
+    """Names of the bundled networks, demo first, then the IEEE systems by size, each limit
+    variant right after its original (``ieee14``, ``ieee14-limits``, ...), then the large
+    public systems by size."""
     names = [p.stem for p in DATA_DIR.glob("*.json")]
-    order = {"demo": 0, "ieee14": 1, "ieee30": 2, "ieee57": 3, "ieee118": 4, "ieee300": 5}
+    order = {"demo": 0, "ieee14": 1, "ieee30": 2, "ieee57": 3, "ieee118": 4, "ieee300": 5,
+             "activsg200": 6, "pegase1354": 7, "activsg2000": 8, "pegase2869": 9}
 
     def key(n: str):
         base = n.removesuffix("-limits")
@@ -32,8 +35,8 @@ def bundled_names() -> list[str]:
 
 
 def load_network(spec: str | Path) -> Network:
-    """A bundled network by name, or a network file: our JSON format (``.json``) or the IEEE
-    Common Data Format (any other file)."""
+    """A bundled network by name, or a network file: our JSON format (``.json``), a MATPOWER
+    case (``.m``) or the IEEE Common Data Format (any other file)."""
     spec_s = str(spec)
     if spec_s in bundled_names():
         return read_network_json(DATA_DIR / f"{spec_s}.json")
@@ -44,6 +47,9 @@ def load_network(spec: str | Path) -> Network:
             where=spec_s)
     if path.suffix.lower() == ".json":
         return read_network_json(path)
+    if path.suffix.lower() == ".m":
+        from ._matpower import read_matpower
+        return read_matpower(path)
     from ._cdf import read_cdf
     return read_cdf(path)
 
@@ -55,4 +61,7 @@ def __getattr__(name: str):
     if name == "read_cdf":
         from ._cdf import read_cdf
         return read_cdf
+    if name in ("read_matpower", "write_matpower"):
+        from . import _matpower
+        return getattr(_matpower, name)
     raise AttributeError(name)
