@@ -231,13 +231,18 @@ def _outside():
     return Outside()
 
 
+def _year():
+    from ._year import Year
+    return Year()
+
+
 DESIGNS: dict[str, Callable[[], Any]] = {"level-local": LevelLocal, "shifted": Shifted, "edge": Edge,
-                                         "spanning": _spanning, "outside": _outside}
+                                         "spanning": _spanning, "outside": _outside, "year": _year}
 # train and test-id span the feasible region (different seeds, so no shared draw); test-ood lies
 # outside what the training design produces; train-local is the narrow design around the base
 # case, kept so that a user can measure the narrow-to-wide generalisation gap.
 SPLIT_DESIGN = {"train": "spanning", "test-id": "spanning", "test-ood": "outside", "test-edge": "edge",
-                "train-local": "level-local"}
+                "test-year": "year", "train-local": "level-local"}
 
 
 def design_for(split: str, net: Network | None = None, train=None):

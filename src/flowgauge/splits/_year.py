@@ -1,0 +1,210 @@
+"""The year design: real hourly load patterns. Each sample is one hour of a year of recorded
+area loads (the bundled area-load files, network/data/scenarios/<network>.json).
+
+Spreading an hour over the loads: every load of an area is scaled by the same factor, the
+area's total for the hour over the area's base total (sum of the base real loads of its
+buses); reactive power is scaled by the same factor, so each load keeps its power factor.
+
+Which hours: the year is cut into its ``D`` days, put in the order in which the golden-ratio
+sequence ``x_k = frac(k (sqrt(5) - 1) / 2)``, k = 0, 1, 2, ..., first reaches them (day
+``floor(x_k D)``; :func:`day_order`). Sample ``i`` takes day ``order[i mod D]``, so the first
+``n`` samples fall on ``min(n, D)`` distinct days spread over the whole year whatever ``n`` is
+(the builder does not tell a design how many samples it will draw; measured: no gap between
+the chosen days longer than 1.99 D / n days, for every n, in years of 365 and 366 days). The
+hour of the day is drawn uniformly from the sample's random stream (seeded); a redraw after a
+rejected draw takes another hour of the same day. Each sample's ``kind`` is
+its month, ``month-01`` .. ``month-12``; the hour itself is recovered from its loads by
+:func:`hours_of_loadings`.
+"""
+
+from __future__ import annotations
+
+import calendar
+import math
+from dataclasses import dataclass, field, replace
+from functools import lru_cache
+from datetime import datetime, timedelta
+from pathlib import Path
+from typing import Any, ClassVar
+
+import numpy as np
+
+from .._io import canonical_json, parse_json, read_input_bytes, sha256_hex
+from ..errors import InputError
+from ..network import Network
+from ..network._changes import AREA_COLUMNS, check_areas
+from ._designs import Loading
+
+__all__ = ["Year", "AreaScenario", "load_scenario", "scenario_path", "SCENARIO_DIR", "day_order",
+           "spread_area_loads", "hours_of_loadings"]
+
+SCENARIO_DIR = Path(__file__).resolve().parent.parent / "network" / "data" / "scenarios"
+FORMAT_NAME = "flowgauge-area-loads"
+GOLDEN = (math.sqrt(5.0) - 1.0) / 2.0
+
+
+@dataclass(frozen=True, eq=False)
+class AreaScenario:
+    """A year of hourly area loads: ``load_mw`` (H, A) [MW] for ``areas`` (A,) numbers of the
+    bus column ``area_column``; ``hash`` the SHA-256 of the canonical document."""
+
+    network: str
+    year: int
+    area_column: str
+    areas: np.ndarray
+    load_mw: np.ndarray
+    source: dict
+    hash: str
+    file: str
+
+    @property
+    def hours(self) -> int:
+        return int(self.load_mw.shape[0])
+
+    def timestamp(self, hour: int) -> str:
+        """Start of hour ``hour`` (0-based) as ``YYYY-MM-DDTHH:00``."""
+        return (datetime(self.year, 1, 1) + timedelta(hours=int(hour))).strftime("%Y-%m-%dT%H:00")
+
+
+def scenario_path(name: str) -> Path:
+    return SCENARIO_DIR / f"{name}.json"
+
+
+def bundled_scenarios() -> list[str]:
+    return sorted(p.stem for p in SCENARIO_DIR.glob("*.json"))
+
+
+def load_scenario(path: str | Path) -> AreaScenario:
+    """Read an area-load file (docs/network-format.md, "Hourly area loads"); bad content raises
+    :class:`InputError` naming the file and field."""
+    where = str(path)
+    doc = parse_json(read_input_bytes(path).decode("utf-8"), where=where)
+    if not isinstance(doc, dict) or doc.get("format") != FORMAT_NAME or doc.get("format_version") != 1:
+        raise InputError(f"expected an area-load file (format {FORMAT_NAME!r}, format_version 1)", where=where)
+    year, column = doc.get("year"), doc.get("area_column")
+    if not isinstance(year, int) or not 1900 <= year <= 2200:
+        raise InputError("expected a year (whole number)", where=f"{where}: year")
+    if column not in AREA_COLUMNS:
+        raise InputError(f"expected one of {', '.join(AREA_COLUMNS)}", where=f"{where}: area_column")
+    areas = doc.get("areas")
+    if not (isinstance(areas, list) and areas and all(isinstance(a, int) and not isinstance(a, bool) for a in areas)
+            and areas == sorted(set(areas))):
+        raise InputError("expected a non-empty list of distinct area numbers in increasing order", where=f"{where}: areas")
+    hours = 24 * (366 if calendar.isleap(year) else 365)
+    try:
+        load = np.array(doc.get("area_load_mw"), dtype=float)
+    except (TypeError, ValueError):
+        load = np.zeros(0)
+    if load.shape != (hours, len(areas)) or not np.all(np.isfinite(load)) or np.any(load < 0):
+        raise InputError(f"expected {hours} rows (the hours of {year}) of {len(areas)} finite loads >= 0 [MW]",
+                         where=f"{where}: area_load_mw")
+    return AreaScenario(network=str(doc.get("network")), year=year, area_column=column,
+                        areas=np.array(areas, np.int64), load_mw=load, source=dict(doc.get("source") or {}),
+                        hash=sha256_hex(canonical_json(doc)), file=Path(path).name)
+
+
+@lru_cache(maxsize=8)
+def _day_order(days: int) -> tuple[int, ...]:
+    seen: set[int] = set()
+    order: list[int] = []
+    k = 0
+    while len(order) < days:
+        d = int(math.floor(((k * GOLDEN) % 1.0) * days))
+        k += 1
+        if d not in seen:
+            seen.add(d)
+            order.append(d)
+    return tuple(order)
+
+
+def day_order(days: int) -> np.ndarray:
+    """The days 0 .. ``days - 1`` in the order the golden-ratio sequence ``frac(k (sqrt(5) -
+    1) / 2)`` first reaches them (day ``floor(x days)``), shape (days,)."""
+    return np.array(_day_order(int(days)), dtype=np.int64)
+
+
+def spread_area_loads(pd0_mw: np.ndarray, qd0_mvar: np.ndarray, load_area: np.ndarray, areas: np.ndarray,
+                      area_total_mw: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Loads for given area totals: each load of area ``areas[j]`` scaled by
+    ``area_total_mw[..., j] / (sum of the base real loads of area j)``, real and reactive alike.
+
+    ``pd0_mw``, ``qd0_mvar``, ``load_area`` shape (n_load,); ``area_total_mw`` shape (A,) or
+    (S, A) [MW]. Returns ``pd_mw``, ``qd_mvar`` of shape (n_load,) or (S, n_load)."""
+    idx = np.searchsorted(areas, load_area)
+    base = np.bincount(idx, weights=pd0_mw, minlength=areas.size)
+    factor = np.asarray(area_total_mw, float) / base
+    f = factor[..., idx]
+    return pd0_mw * f, qd0_mvar * f
+
+
+def hours_of_loadings(scenario: AreaScenario, net: Network, pd_mw: np.ndarray, rtol: float = 1e-6) -> np.ndarray:
+    """The hour (0-based) of each loading of the year design, (S,) int: the hour whose area totals
+    equal the loading's (relative tolerance ``rtol``); -1 where none does."""
+    load_area = check_areas(scenario.areas, net, scenario.area_column, lambda a: f"network {net.name!r}")
+    idx = np.searchsorted(scenario.areas, load_area)
+    pd = np.atleast_2d(np.asarray(pd_mw, float))
+    totals = np.stack([np.bincount(idx, weights=row, minlength=scenario.areas.size) for row in pd])
+    out = np.full(pd.shape[0], -1, np.int64)
+    for s, t in enumerate(totals):
+        close = np.all(np.abs(scenario.load_mw - t) <= rtol * np.maximum(np.abs(t), 1.0), axis=1)
+        hit = np.flatnonzero(close)
+        if hit.size:
+            out[s] = int(hit[0])
+    return out
+
+
+@dataclass(frozen=True, eq=False)
+class Year:
+    """One sample per hour of a recorded year (module docstring); :meth:`fitted` reads the
+    network's bundled area-load file."""
+
+    uses_slot: ClassVar[bool] = True
+    name: str = "year"
+    scenario: AreaScenario | None = field(default=None, repr=False)
+    load_area: np.ndarray | None = field(default=None, repr=False)
+
+    def fitted(self, net: Network, solver=None) -> "Year":
+        if self.scenario is not None:
+            return self
+        path = scenario_path(net.name)
+        if not path.is_file():
+            have = ", ".join(bundled_scenarios()) or "none"
+            raise InputError(f"the year design needs hourly area loads, and network {net.name!r} has none "
+                             f"(bundled for: {have})", where=f"network {net.name!r}")
+        sc = load_scenario(path)
+        load_area = check_areas(sc.areas, net, sc.area_column, lambda a: f"{path.name}: areas")
+        return replace(self, scenario=sc, load_area=load_area)
+
+    def _need(self) -> AreaScenario:
+        if self.scenario is None:
+            raise InputError("the year design is not fitted to a network", where="design")
+        return self.scenario
+
+    def day_of(self, slot: int) -> int:
+        days = self._need().hours // 24
+        return int(_day_order(days)[slot % days])
+
+    def parameters(self, net: Network) -> dict[str, Any]:
+        sc = self._need()
+        base = np.bincount(np.searchsorted(sc.areas, self.load_area), weights=net.pd_mw, minlength=sc.areas.size)
+        days = sc.hours // 24
+        return {
+            "scenarios": sc.file, "scenarios_hash": sc.hash,
+            "source": {k: sc.source.get(k) for k in ("file", "package", "package_version", "sha256")},
+            "year": sc.year, "hours": sc.hours, "area_column": sc.area_column, "areas": sc.areas.tolist(),
+            "base_area_load_mw": base.tolist(),
+            "spreading": "each load of an area scaled by the area's total for the hour / the area's base total; "
+                         "reactive power scaled by the same factor (power factor kept)",
+            "hours_rule": "sample i: day order[i mod days], the days in the order the golden-ratio sequence "
+                          "frac(k (sqrt(5) - 1) / 2) first reaches them (day floor(x days)); hour of the day "
+                          "uniform from the sample's stream; a redraw stays in the day",
+            "days": days, "first_days": day_order(days)[:8].tolist(),
+            "kind": "month of the hour, month-01 .. month-12",
+        }
+
+    def draw(self, net: Network, rng: np.random.Generator, solver=None, *, slot: int = 0) -> Loading:
+        sc = self._need()
+        hour = 24 * self.day_of(slot) + int(rng.integers(24))
+        pd, qd = spread_area_loads(net.pd_mw, net.qd_mvar, self.load_area, sc.areas, sc.load_mw[hour])
+        month = (datetime(sc.year, 1, 1) + timedelta(hours=hour)).month
+        return Loading(pd, qd, kind=f"month-{month:02d}")
