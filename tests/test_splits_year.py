@@ -104,6 +104,32 @@ def test_activsg200_draws_are_the_source_hours(g200):
             assert np.allclose(loading.qd_mvar / loading.pd_mw, base_pf, rtol=1e-12)  # power factor kept
 
 
+def test_activsg2000_leaves_out_the_hours_it_cannot_serve():
+    # 2016 with the AREA column; an hour is servable when its total load reaches the summed
+    # minimum outputs (PMIN) of the case's in-service generators (common practice: committed
+    # units run at least at their minimum). Both counted here from the source table and the
+    # network's generator data.
+    areas, table = _source_table("scenarios_ACTIVSg2000.m")
+    net = load_network("activsg2000")
+    design = design_for("test-year", net)
+    servable = table.sum(axis=1) >= net.pmin_mw.sum()
+    keep_day = servable.reshape(366, 24).any(axis=1)
+    days = [d for d in _first_reach(366) if keep_day[d]]
+    p = design.parameters(net)
+    assert (p["hours_left_out"], p["days_left_out"]) == (int((~servable).sum()), int((~keep_day).sum()))
+    assert p["hours_left_out"] > 0  # light spring nights of 2016 fall below the summed minimum outputs
+    stream = draw_stream("test-year", "year")
+    pds, hours = [], []
+    for slot in range(40):
+        loading = design.draw(net, sample_rng(3, slot, 0, stream), slot=slot)
+        _, tot = _area_totals(net, loading.pd_mw, "bus_areas")
+        hit = np.flatnonzero(np.all(np.abs(table - tot[0]) <= 1e-9 * table.max(), axis=1))
+        assert hit.size >= 1 and servable[hit[0]] and hit[0] // 24 == days[slot], slot
+        pds.append(loading.pd_mw)
+        hours.append(int(hit[0]))
+    assert _year.hours_of_loadings(design.scenario, net, np.array(pds)).tolist() == hours
+
+
 def test_parameters_record_the_source_and_its_hash():
     net = load_network("activsg2000")
     p = design_for("test-year", net).parameters(net)
@@ -191,3 +217,17 @@ def test_tiny_activsg200_build_matches_the_source_hours(tmp_path, g200):
     for i, t in enumerate(tot):
         hit = np.flatnonzero(np.all(np.abs(table - t) <= 1e-7 * table.max(), axis=1))
         assert hit.size >= 1 and hit[0] // 24 == DAYS_2017[i]
+
+
+def test_a_bad_area_load_file_names_file_and_field(tmp_path, monkeypatch):
+    _zoned_ieee14(tmp_path, monkeypatch)
+    path = tmp_path / "scenarios" / "ieee14.json"
+    doc = json.loads(path.read_text())
+    doc["area_load_mw"] = doc["area_load_mw"][:100]  # 100 hours, 2017 has 8760
+    path.write_text(json.dumps(doc))
+    with pytest.raises(InputError, match=r"ieee14\.json: area_load_mw: expected 8760 rows \(the hours of 2017\)"):
+        _year.load_scenario(path)
+    doc["area_load_mw"], doc["areas"] = [[1.0, 2.0]] * 8760, [2, 1]
+    path.write_text(json.dumps(doc))
+    with pytest.raises(InputError, match=r"ieee14\.json: areas: expected a non-empty list of distinct area numbers"):
+        _year.load_scenario(path)

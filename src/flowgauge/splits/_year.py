@@ -12,7 +12,12 @@ sequence ``x_k = frac(k (sqrt(5) - 1) / 2)``, k = 0, 1, 2, ..., first reaches th
 (the builder does not tell a design how many samples it will draw; measured: no gap between
 the chosen days longer than 1.99 D / n days, for every n, in years of 365 and 366 days). The
 hour of the day is drawn uniformly from the sample's random stream (seeded); a redraw after a
-rejected draw takes another hour of the same day. Each sample's ``kind`` is
+rejected draw takes another hour of the same day.
+
+Hours the network cannot serve as committed are left out: an hour whose total load is below the
+summed minimum outputs of the generators (every in-service generator runs at least at its
+minimum; losses only add load) is never drawn, and a day without a servable hour is skipped in
+the day order. Their counts are recorded in the design's parameters. Each sample's ``kind`` is
 its month, ``month-01`` .. ``month-12``; the hour itself is recovered from its loads by
 :func:`hours_of_loadings`.
 """
@@ -156,12 +161,14 @@ def hours_of_loadings(scenario: AreaScenario, net: Network, pd_mw: np.ndarray, r
 @dataclass(frozen=True, eq=False)
 class Year:
     """One sample per hour of a recorded year (module docstring); :meth:`fitted` reads the
-    network's bundled area-load file."""
+    network's bundled area-load file and marks the hours the network can serve."""
 
     uses_slot: ClassVar[bool] = True
     name: str = "year"
     scenario: AreaScenario | None = field(default=None, repr=False)
     load_area: np.ndarray | None = field(default=None, repr=False)
+    servable: np.ndarray | None = field(default=None, repr=False)  # (H,) bool
+    minimum_total_mw: float = float("nan")
 
     def fitted(self, net: Network, solver=None) -> "Year":
         if self.scenario is not None:
@@ -173,16 +180,30 @@ class Year:
                              f"(bundled for: {have})", where=f"network {net.name!r}")
         sc = load_scenario(path)
         load_area = check_areas(sc.areas, net, sc.area_column, lambda a: f"{path.name}: areas")
-        return replace(self, scenario=sc, load_area=load_area)
+        # An hour whose total load is below the summed minimum outputs of the generators cannot
+        # be served by the network as committed (losses only add load): it is left out.
+        minimum = float(np.sum(net.pmin_mw))
+        servable = sc.load_mw.sum(axis=1) >= minimum
+        if not servable.any():
+            raise InputError(f"no hour of {path.name} reaches the summed minimum outputs of the generators "
+                             f"({minimum:.1f} MW)", where=f"network {net.name!r}")
+        return replace(self, scenario=sc, load_area=load_area, servable=servable, minimum_total_mw=minimum)
 
     def _need(self) -> AreaScenario:
         if self.scenario is None:
             raise InputError("the year design is not fitted to a network", where="design")
         return self.scenario
 
-    def day_of(self, slot: int) -> int:
+    def days_used(self) -> np.ndarray:
+        """The days in the design's order with at least one servable hour, shape (<= D,)."""
         days = self._need().hours // 24
-        return int(_day_order(days)[slot % days])
+        keep = self.servable.reshape(days, 24).any(axis=1)
+        order = day_order(days)
+        return order[keep[order]]
+
+    def day_of(self, slot: int) -> int:
+        used = self.days_used()
+        return int(used[slot % used.size])
 
     def parameters(self, net: Network) -> dict[str, Any]:
         sc = self._need()
@@ -195,16 +216,22 @@ class Year:
             "base_area_load_mw": base.tolist(),
             "spreading": "each load of an area scaled by the area's total for the hour / the area's base total; "
                          "reactive power scaled by the same factor (power factor kept)",
-            "hours_rule": "sample i: day order[i mod days], the days in the order the golden-ratio sequence "
-                          "frac(k (sqrt(5) - 1) / 2) first reaches them (day floor(x days)); hour of the day "
-                          "uniform from the sample's stream; a redraw stays in the day",
-            "days": days, "first_days": day_order(days)[:8].tolist(),
+            "hours_rule": "sample i: day used[i mod len(used)], the days in the order the golden-ratio sequence "
+                          "frac(k (sqrt(5) - 1) / 2) first reaches them (day floor(x days)), keeping the days with a "
+                          "servable hour; hour uniform among the day's servable hours from the sample's stream; "
+                          "a redraw stays in the day",
+            "servable": "total load of the hour >= summed minimum outputs of the generators",
+            "minimum_total_load_mw": self.minimum_total_mw,
+            "hours_left_out": int((~self.servable).sum()), "days_left_out": int(days - self.days_used().size),
+            "days": days, "first_days": self.days_used()[:8].tolist(),
             "kind": "month of the hour, month-01 .. month-12",
         }
 
     def draw(self, net: Network, rng: np.random.Generator, solver=None, *, slot: int = 0) -> Loading:
         sc = self._need()
-        hour = 24 * self.day_of(slot) + int(rng.integers(24))
+        day = self.day_of(slot)
+        hours = 24 * day + np.flatnonzero(self.servable[24 * day:24 * day + 24])
+        hour = int(hours[int(rng.integers(hours.size))])
         pd, qd = spread_area_loads(net.pd_mw, net.qd_mvar, self.load_area, sc.areas, sc.load_mw[hour])
         month = (datetime(sc.year, 1, 1) + timedelta(hours=hour)).month
         return Loading(pd, qd, kind=f"month-{month:02d}")
