@@ -55,6 +55,11 @@ FAMILY_OF_LIMIT = {"vmin": "voltage", "vmax": "voltage", "pmin": "active_power",
 
 _PILOTS: dict = {}  # fitted fraction and pilot by (network hash, settings), within one process
 LIGHT_SHARES = (0.05, 0.1, 0.2, 0.3, 0.4)
+# Networks above LARGE_NETWORK_BUSES solve a smaller pilot: there nearly every loading has a
+# binding-limit regime of its own, so the pilot's inverse-frequency weights are flat and the
+# pilot serves only as a set of feasible starting directions; 200 draws would cost hours.
+LARGE_NETWORK_BUSES = 1000
+LARGE_PILOT_DRAWS = 40
 
 
 def regime_families(binding) -> set[str]:
@@ -130,6 +135,8 @@ class Spanning:
     def fitted(self, net: Network, solver=None) -> "Spanning":
         if self.pilot is not None:
             return self
+        if net.n_bus > LARGE_NETWORK_BUSES and self.pilot_draws > LARGE_PILOT_DRAWS:
+            return replace(self, pilot_draws=LARGE_PILOT_DRAWS).fitted(net, solver)
         from ._manifest import network_hash
         from ._worker import _Tools
         key = (network_hash(net), self.pilot_draws, self.pilot_seed, self.concentration, self.power_factor,
