@@ -15,7 +15,7 @@ from ..errors import InputError
 from ..network import Network, bundled_names, load_network
 from ._manifest import SPLIT_NAMES, network_hash, read_manifest
 from ._store import (MANIFEST_FILE, References, inputs_from_table, kinds_from_table,
-                     read_table, references_from_table)
+                     read_table, references_from_table, state_from_table)
 
 __all__ = ["Split", "splits_root", "list_splits", "find_split", "resolve_split", "load_split",
            "split_network"]
@@ -100,6 +100,9 @@ class Split:
     ``sample_id``: (S,) int; ``pd_mw``, ``qd_mvar``: (S, n_load) [MW], [MVAr] in ``load_id``
     order; ``references``: :class:`References` (None for a published split without references);
     ``bus_id``, ``gen_id``, ``load_id``, ``branch_id``: the element order of every array.
+    ``branch_in_service`` (S, n_branch), ``gen_in_service`` (S, n_gen) bool: per-sample states,
+    None for splits whose samples all run on the network as it is (:meth:`state` then gives the
+    intact state).
     """
 
     path: Path
@@ -109,6 +112,49 @@ class Split:
     qd_mvar: np.ndarray
     references: References | None = field(default=None)
     kind: np.ndarray | None = field(default=None)  # (S,) str: the kind of draw (splits since format 2)
+    branch_in_service: np.ndarray | None = field(default=None)
+    gen_in_service: np.ndarray | None = field(default=None)
+
+    @property
+    def has_states(self) -> bool:
+        """Whether the split's inputs carry per-sample in-service flags."""
+        return self.branch_in_service is not None
+
+    def _row(self, i) -> int:
+        n = self.n_samples
+        if isinstance(i, (bool, np.bool_)) or not isinstance(i, (int, np.integer)) or not 0 <= int(i) < n:
+            raise InputError(f"expected a sample position from 0 to {n - 1} (a row, not a sample id), got {i!r}",
+                             where=f"split {self.network_name}/{self.name}")
+        return int(i)
+
+    def state(self, i: int) -> tuple[np.ndarray, np.ndarray]:
+        """The state of the sample in row ``i``: (``branch_in_service`` (n_branch,),
+        ``gen_in_service`` (n_gen,)) bool, in the manifest's element order, checked against the
+        network (:func:`flowgauge.network._state.check_state`, errors naming the sample id)."""
+        from ..network._state import check_state, intact_state
+        row = self._row(i)
+        if self.branch_in_service is None:
+            return intact_state(self.network)
+        return check_state(self.network, self.branch_in_service[row], self.gen_in_service[row],
+                           sample=int(self.sample_id[row]))
+
+    def state_network(self, i: int) -> Network:
+        """The network of the sample in row ``i`` (:func:`flowgauge.network._state.network_in_state`):
+        same shapes and element order, the solvers run on it unchanged."""
+        from ..network._state import network_in_state
+        br, gen = self.state(i)
+        return network_in_state(self.network, br, gen, sample=int(self.sample_id[self._row(i)]))
+
+    def graph(self, i: int):
+        """The sample in row ``i`` as a graph (:class:`flowgauge.network._state.GraphView`): the
+        in-service branches as an edge list (n_edge, 2) of bus positions with per-edge features
+        (r, x, b [p.u.], rating [MVA], tap, shift [deg]) and per-bus features (loads [MW], [MVAr],
+        shunts, voltage limits [p.u.], in-service generator limits [MW], [MVAr], bus type)."""
+        from ..network._state import sample_graph
+        row = self._row(i)
+        br, gen = self.state(row)
+        return sample_graph(self.network, br, self.pd_mw[row], self.qd_mvar[row], gen,
+                            sample=int(self.sample_id[row]))
 
     @property
     def name(self) -> str:
@@ -185,6 +231,8 @@ def load_split(network_or_path: str | Path, split: str | None = None, *, referen
     table = read_table(inputs_path)
     sample_id, pd_mw, qd_mvar = inputs_from_table(table, inputs_path)
     kind = kinds_from_table(table)
+    state = state_from_table(table, inputs_path, len(manifest["elements"]["branch_id"]),
+                             len(manifest["elements"]["gen_id"]))
     n_load = len(manifest["elements"]["load_id"])
     if pd_mw.shape != (manifest["samples"], n_load):
         raise InputError(f"expected pd_mw of shape ({manifest['samples']}, {n_load}) as the manifest says, "
@@ -194,4 +242,6 @@ def load_split(network_or_path: str | Path, split: str | None = None, *, referen
     if references and ref_path.exists():
         refs = references_from_table(read_table(ref_path), ref_path)
     return Split(path=folder, manifest=manifest, sample_id=sample_id, pd_mw=pd_mw, qd_mvar=qd_mvar,
-                 references=refs, kind=kind)
+                 references=refs, kind=kind,
+                 branch_in_service=None if state is None else state[0],
+                 gen_in_service=None if state is None else state[1])

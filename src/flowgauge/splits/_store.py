@@ -1,6 +1,7 @@
 """Parquet storage of split inputs and references, and their format-independent hashes.
 
-Per-element arrays are stored as ``fixed_size_list<float64>[n]`` columns, one row per sample.
+Per-element arrays are stored as ``fixed_size_list<float64>[n]`` columns, one row per sample;
+per-sample in-service flags (optional) as ``fixed_size_list<bool>[n]``.
 Hashes are :func:`flowgauge._io.hash_arrays` over the columns as numpy arrays (never over the
 Parquet bytes), so another pyarrow version or compression gives the same hash.
 """
@@ -22,7 +23,7 @@ __all__ = [
     "INPUTS_FILE", "REFERENCES_FILE", "MANIFEST_FILE", "STORED_DIGITS",
     "References", "round_array", "inputs_table", "references_table", "table_columns",
     "columns_hash", "solution_hash", "write_table", "read_table", "inputs_from_table",
-    "references_from_table", "kinds_from_table", "BINDING_SEP",
+    "references_from_table", "kinds_from_table", "state_from_table", "STATE_COLUMNS", "BINDING_SEP",
 ]
 
 INPUTS_FILE = "inputs.parquet"
@@ -35,6 +36,9 @@ STORED_DIGITS = 10
 BINDING_SEP = "\x1e"
 # Columns left out of the solution hash: measurements of this machine, not results.
 TIMING_COLUMNS = ("solve_seconds",)
+
+# Optional inputs columns: per-sample in-service flags in the manifest's branch / generator order.
+STATE_COLUMNS = ("branch_in_service", "gen_in_service")
 
 _VECTOR_REF = ("pg_mw", "qg_mvar", "vm_pu", "va_deg")
 _SCALAR_REF_FLOAT = ("objective_per_h", "max_p_mismatch_mw", "max_q_mismatch_mvar",
@@ -94,9 +98,18 @@ def _fixed(matrix: np.ndarray) -> pa.FixedSizeListArray:
     return pa.FixedSizeListArray.from_arrays(pa.array(m.ravel(), pa.float64()), m.shape[1])
 
 
-def inputs_table(sample_id: np.ndarray, pd_mw: np.ndarray, qd_mvar: np.ndarray, kind=None) -> pa.Table:
+def _fixed_bool(matrix: np.ndarray) -> pa.FixedSizeListArray:
+    m = np.ascontiguousarray(matrix, dtype=bool)
+    return pa.FixedSizeListArray.from_arrays(pa.array(m.ravel(), pa.bool_()), m.shape[1])
+
+
+def inputs_table(sample_id: np.ndarray, pd_mw: np.ndarray, qd_mvar: np.ndarray, kind=None,
+                 branch_in_service: np.ndarray | None = None, gen_in_service: np.ndarray | None = None) -> pa.Table:
     """Inputs table: ``sample_id`` (S,), ``pd_mw``, ``qd_mvar`` (S, n_load) [MW], [MVAr], and
-    optionally ``kind`` (S,) str: which kind of draw of its design produced each sample."""
+    optionally ``kind`` (S,) str: which kind of draw of its design produced each sample, and the
+    per-sample state ``branch_in_service`` (S, n_branch) and ``gen_in_service`` (S, n_gen) bool
+    (both or neither). Without the optional arguments the table is exactly that of splits
+    written before per-sample states."""
     data = {
         "sample_id": pa.array(np.asarray(sample_id, np.int64)),
         "pd_mw": _fixed(round_array(pd_mw)),
@@ -104,6 +117,15 @@ def inputs_table(sample_id: np.ndarray, pd_mw: np.ndarray, qd_mvar: np.ndarray, 
     }
     if kind is not None:
         data["kind"] = pa.array([str(k) for k in kind], pa.string())
+    if (branch_in_service is None) != (gen_in_service is None):
+        raise InputError("give both branch_in_service and gen_in_service, or neither", where="inputs_table")
+    if branch_in_service is not None:
+        n_s = len(data["sample_id"])
+        for name, flags in zip(STATE_COLUMNS, (branch_in_service, gen_in_service)):
+            a = np.asarray(flags)
+            if a.dtype.kind != "b" or a.ndim != 2 or a.shape[0] != n_s:
+                raise InputError(f"expected a bool array of shape ({n_s}, n), got {a.dtype} {a.shape}", where=name)
+            data[name] = _fixed_bool(a)
     return pa.table(data)
 
 
@@ -130,6 +152,10 @@ def references_table(sample_id: np.ndarray, cols: dict) -> pa.Table:
 def _column_array(col: pa.ChunkedArray, name: str) -> np.ndarray:
     col = col.combine_chunks() if isinstance(col, pa.ChunkedArray) else col
     t = col.type
+    if pa.types.is_fixed_size_list(t) and pa.types.is_boolean(t.value_type):
+        return _bool_list_array(col, name, t.list_size)
+    if (pa.types.is_list(t) or pa.types.is_large_list(t)) and pa.types.is_boolean(t.value_type):
+        return _bool_list_array(col, name, None)  # e.g. rewritten by pandas as list<bool>
     if pa.types.is_fixed_size_list(t):
         flat = col.flatten().to_numpy(zero_copy_only=False)
         return flat.astype(np.float64, copy=False).reshape(len(col), t.list_size)
@@ -156,6 +182,19 @@ def _variable_list_array(col: pa.Array, name: str) -> np.ndarray:
     width = int(lengths[0]) if lengths.size else 0
     flat = col.flatten().to_numpy(zero_copy_only=False).astype(np.float64, copy=False)
     return flat.reshape(len(col), width)
+
+
+def _bool_list_array(col: pa.Array, name: str, width: int | None) -> np.ndarray:
+    """A list column of flags as (rows, width) bool; nulls (a row or a flag) and rows of unequal
+    length are a damaged file."""
+    lengths = pa.compute.list_value_length(col).to_numpy(zero_copy_only=False)
+    flat = col.flatten()
+    if col.null_count or flat.null_count or (lengths.size and np.any(lengths != lengths[0])):
+        raise InputError("expected one true/false flag per element in every row (nulls or rows of "
+                         "different lengths)", where=f"column {name}")
+    if width is None:
+        width = int(lengths[0]) if lengths.size else 0
+    return flat.to_numpy(zero_copy_only=False).astype(bool, copy=False).reshape(len(col), width)
 
 
 def table_columns(table: pa.Table) -> dict[str, np.ndarray]:
@@ -204,6 +243,37 @@ def inputs_from_table(table: pa.Table, path: Path) -> tuple[np.ndarray, np.ndarr
     return (_column_array(table.column("sample_id"), "sample_id"),
             _column_array(table.column("pd_mw"), "pd_mw"),
             _column_array(table.column("qd_mvar"), "qd_mvar"))
+
+
+def state_from_table(table: pa.Table, path: Path, n_branch: int,
+                     n_gen: int) -> tuple[np.ndarray, np.ndarray] | None:
+    """(``branch_in_service`` (S, n_branch), ``gen_in_service`` (S, n_gen)) bool, or None for
+    inputs without per-sample states. One column without the other, a column that is not flags,
+    or a width other than the manifest's element count raises :class:`InputError`."""
+    have = [n for n in STATE_COLUMNS if n in table.column_names]
+    if not have:
+        return None
+    if len(have) == 1:
+        missing = [n for n in STATE_COLUMNS if n not in have][0]
+        raise InputError(f"column {have[0]} is present but {missing} is not (expected both or neither)",
+                         where=str(path))
+    out = []
+    for name, n in zip(STATE_COLUMNS, (n_branch, n_gen)):
+        col = table.column(name)
+        t = col.type
+        if not ((pa.types.is_fixed_size_list(t) or pa.types.is_list(t) or pa.types.is_large_list(t))
+                and pa.types.is_boolean(t.value_type)):
+            raise InputError(f"expected a list of true/false flags per sample, got column type {t}",
+                             where=f"{path}: column {name}")
+        try:
+            a = _column_array(col, name)
+        except InputError as exc:
+            raise InputError(exc.message, where=f"{path}: {exc.where}") from None
+        if a.shape != (table.num_rows, n):
+            raise InputError(f"expected {n} flags per sample (the manifest's element count), got shape "
+                             f"{a.shape}", where=f"{path}: column {name}")
+        out.append(a)
+    return out[0], out[1]
 
 
 def kinds_from_table(table: pa.Table) -> np.ndarray | None:
