@@ -309,3 +309,37 @@ def test_dcopf_on_an_outage_matches_pypower_rundcopf_without_the_element(nets, n
     assert res.objective == pytest.approx(ref["f"], rel=1e-6)
     keep = np.delete(np.arange(net.n_gen), pos) if table == "generator" else np.arange(net.n_gen)
     np.testing.assert_allclose(res.pg_mw[keep], ref["gen"][:, 1], atol=1e-3)
+
+
+def test_group_states_by_hand():
+    # hand: rows 0 and 2 share a state, row 1 and row 3 differ; groups by first appearance
+    br = np.array([[1, 1, 1], [1, 0, 1], [1, 1, 1], [1, 1, 1]], bool)
+    gen = np.array([[1, 1], [1, 1], [1, 1], [0, 1]], bool)
+    from flowgauge.network._state import group_states
+    ub, ug, group = group_states(br, gen)
+    np.testing.assert_array_equal(group, [0, 1, 0, 2])
+    np.testing.assert_array_equal(ub, br[[0, 1, 3]])
+    np.testing.assert_array_equal(ug, gen[[0, 1, 3]])
+
+
+def test_batched_powerflow_on_an_outage_matches_pypower_runpf_per_sample(nets):
+    # the scorer's restoration runs the batched solver: two load levels on ieee118 with branch
+    # 100 out, each against PYPOWER runpf on the case without that branch at the same loads
+    from pypower.api import ppoption, runpf
+
+    from flowgauge.powerflow import solve_powerflow_batch
+    net = nets["ieee118"]
+    state_net, _ = _outage(net, "branch", 100)
+    scale = np.array([[0.9], [1.05]])
+    res = solve_powerflow_batch(state_net, pd_mw=net.pd_mw * scale, qd_mvar=net.qd_mvar * scale)
+    assert res.converged.all()
+    for k in range(2):
+        ppc = to_ppc(net, net.pd_mw * scale[k], net.qd_mvar * scale[k])
+        ppc["branch"] = np.delete(ppc["branch"], 100, axis=0)
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            ref, ok = runpf(ppc, ppoption(**PP_OPTIONS))
+        assert ok
+        # reference library: PYPOWER runpf, same setpoints and loads
+        np.testing.assert_allclose(res.vm_pu[k], ref["bus"][:, 7], atol=1e-6)
+        np.testing.assert_allclose(res.va_deg[k], ref["bus"][:, 8], atol=1e-5)

@@ -26,7 +26,7 @@ __all__ = [
     "ISLANDING", "ISLAND_WITHOUT_GENERATION", "REFERENCE_WITHOUT_GENERATION", "REASONS",
     "StateProblem", "Rejection", "SingleOutages", "GraphView", "EDGE_FEATURES", "NODE_FEATURES",
     "intact_state", "check_state", "state_problem", "network_in_state", "single_outages",
-    "sample_graph",
+    "group_states", "sample_graph",
 ]
 
 # Reasons a state is refused, in the order they are checked.
@@ -213,6 +213,24 @@ def network_in_state(net: Network, branch_in_service, gen_in_service, *, sample=
     has_gen = np.bincount(gb[gen], minlength=net.n_bus) > 0
     bus_type[(bus_type == BUS_PV) & ~has_gen] = BUS_PQ
     return net.replace(in_service=br, bus_type=bus_type, vg_pu=vg, **changes)
+
+
+def group_states(branch_in_service: np.ndarray, gen_in_service: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Samples grouped by state, for solvers that run once per topology.
+
+    ``branch_in_service`` (S, n_branch), ``gen_in_service`` (S, n_gen) bool. Returns
+    (``branch`` (K, n_branch), ``gen`` (K, n_gen), ``group`` (S,) int64): the K distinct states,
+    ordered by first appearance among the samples, and each sample's state number.
+    """
+    br = np.asarray(branch_in_service, bool)
+    gen = np.asarray(gen_in_service, bool)
+    both = np.concatenate([br, gen], axis=1)
+    _, first, inverse = np.unique(both, axis=0, return_index=True, return_inverse=True)
+    order = np.argsort(first, kind="stable")  # distinct states by first appearance
+    rank = np.empty_like(order)
+    rank[order] = np.arange(order.size)
+    keep = np.sort(first)
+    return br[keep], gen[keep], rank[np.ravel(inverse)].astype(np.int64)
 
 
 # ---- single outages ----------------------------------------------------------------------
