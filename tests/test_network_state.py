@@ -343,3 +343,55 @@ def test_batched_powerflow_on_an_outage_matches_pypower_runpf_per_sample(nets):
         # reference library: PYPOWER runpf, same setpoints and loads
         np.testing.assert_allclose(res.vm_pu[k], ref["bus"][:, 7], atol=1e-6)
         np.testing.assert_allclose(res.va_deg[k], ref["bus"][:, 8], atol=1e-5)
+
+
+def test_voltage_setpoint_of_a_shared_bus_comes_from_the_generator_left_in_service(nets):
+    # hand-built: ieee14 with a sixth generator at bus 2 holding another setpoint (1.03 p.u.,
+    # case14's bus-2 generator holds 1.045), listed last so that the power flow's default start
+    # would take its setpoint. With it out, the case is case14 itself: PYPOWER runpf on case14.
+    from pypower.api import ppoption, runpf
+    net = nets["ieee14"]
+    gen_fields = ["gen_id", "gen_bus", "pmin_mw", "pmax_mw", "qmin_mvar", "qmax_mvar", "vg_pu", "pg_mw",
+                  "qg_mvar", "cost_c2", "cost_c1", "cost_c0"]
+    extra = {"gen_id": 6, "gen_bus": 2, "pmin_mw": 0.0, "pmax_mw": 50.0, "qmin_mvar": -20.0, "qmax_mvar": 20.0,
+             "vg_pu": 1.03, "pg_mw": 10.0, "qg_mvar": 0.0, "cost_c2": 0.01, "cost_c1": 20.0, "cost_c0": 0.0}
+    six = net.replace(**{k: np.append(getattr(net, k), extra[k]).astype(getattr(net, k).dtype) for k in gen_fields})
+    gen = np.ones(6, bool)
+    gen[5] = False
+    state_net = network_in_state(six, six.in_service, gen)
+    assert state_net.vg_pu[5] == 1.045  # case14: the bus-2 generator's setpoint
+    res = solve_powerflow(state_net)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        ref, ok = runpf(to_ppc(net), ppoption(**PP_OPTIONS))
+    assert ok and res.converged
+    # reference library: PYPOWER runpf on the case without the sixth generator
+    np.testing.assert_allclose(res.vm_pu, ref["bus"][:, 7], atol=1e-6)
+    assert res.vm_pu[1] == pytest.approx(1.045, abs=1e-12)
+
+
+def test_more_bad_flags_and_plain_lists(nets):
+    net = nets["ieee14"]
+    br, gen = intact_state(net)
+    with pytest.raises(InputError, match=r"expected 20 flags .*got shape \(\)") as exc:
+        check_state(net, None, gen, sample=0)
+    assert exc.value.where == "sample 0: branch_in_service"
+    with pytest.raises(InputError, match=r"expected 5 flags .*got shape \(1, 5\)"):
+        check_state(net, br, gen[None, :], sample=0)
+    with pytest.raises(InputError, match="dtype object"):
+        check_state(net, br, [True, False, "x", None, True], sample=0)
+    b, g = check_state(net, br.tolist(), [True, True, False, True, True])
+    assert g.tolist() == [True, True, False, True, True] and b.all()
+
+
+def test_same_inputs_give_the_same_arrays(nets):
+    # determinism: two calls, identical bytes
+    net = nets["ieee118"]
+    a, b = single_outages(net), single_outages(net)
+    assert a.branches.tobytes() == b.branches.tobytes() and a.rejected == b.rejected
+    br, gen = intact_state(net)
+    br[40] = False
+    v1 = sample_graph(net, br, net.pd_mw, net.qd_mvar, gen)
+    v2 = sample_graph(net, br.copy(), net.pd_mw.copy(), net.qd_mvar.copy(), gen.copy())
+    for name in ("edge_index", "edge_branch", "edge_features", "node_features"):
+        assert getattr(v1, name).tobytes() == getattr(v2, name).tobytes()
