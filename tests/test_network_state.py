@@ -395,3 +395,31 @@ def test_same_inputs_give_the_same_arrays(nets):
     v2 = sample_graph(net, br.copy(), net.pd_mw.copy(), net.qd_mvar.copy(), gen.copy())
     for name in ("edge_index", "edge_branch", "edge_features", "node_features"):
         assert getattr(v1, name).tobytes() == getattr(v2, name).tobytes()
+
+
+def test_binding_labels_of_a_generator_out_are_dropped(nets):
+    # ieee14, generator 1 (id 2, bus 2) out: PYPOWER runopf on the case without it has bus 1, 6
+    # and 8 at Vmax 1.06 and the bus-1 generator at Qmax 10 MVAr (checked below on its result);
+    # the out generator sits at all four of its zero limits and must not add labels.
+    from pypower.api import ppoption, runopf
+
+    from flowgauge.network._state import binding_in_state
+    from flowgauge.opf._result import binding_signature
+    net = nets["ieee14"]
+    state_net, ppc = _outage(net, "generator", 1)
+    res = ACOPF(state_net).solve()
+    assert {"gen:2:pmin", "gen:2:pmax", "gen:2:qmin", "gen:2:qmax"} <= set(res.binding)
+    gen = np.ones(5, bool)
+    gen[1] = False
+    kept = binding_in_state(res.binding, net, gen)
+    assert kept == ("bus:1:vmax", "bus:6:vmax", "bus:8:vmax", "gen:1:qmax")
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        ref = runopf(ppc, ppoption(**PP_OPTIONS))
+    # reference library: PYPOWER runopf's solution sits at exactly these limits (1e-4 p.u. / MVAr)
+    vm, vmax = ref["bus"][:, 7], ref["bus"][:, 11]
+    assert sorted(int(b) for b in ref["bus"][vmax - vm <= 1e-4, 0]) == [1, 6, 8]
+    g = ref["gen"]
+    assert g[0, 3] - g[0, 2] <= 1e-2  # case14 generator at bus 1: QG at QMAX
+    assert not np.any(np.abs(g[1:, 1] - g[1:, 8]) <= 1e-2)  # no other generator at PMAX
+    assert binding_signature(kept) != res.signature

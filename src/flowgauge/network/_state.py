@@ -26,7 +26,7 @@ __all__ = [
     "ISLANDING", "ISLAND_WITHOUT_GENERATION", "REFERENCE_WITHOUT_GENERATION", "REASONS",
     "StateProblem", "Rejection", "SingleOutages", "GraphView", "EDGE_FEATURES", "NODE_FEATURES",
     "intact_state", "check_state", "state_problem", "network_in_state", "single_outages",
-    "group_states", "sample_graph",
+    "group_states", "binding_in_state", "sample_graph",
 ]
 
 # Reasons a state is refused, in the order they are checked.
@@ -231,6 +231,16 @@ def group_states(branch_in_service: np.ndarray, gen_in_service: np.ndarray) -> t
     rank[order] = np.arange(order.size)
     keep = np.sort(first)
     return br[keep], gen[keep], rank[np.ravel(inverse)].astype(np.int64)
+
+
+def binding_in_state(binding, net: Network, gen_in_service) -> tuple[str, ...]:
+    """Binding-limit labels (``gen:<id>:pmax``, ...) of an AC-OPF solved on a state network,
+    without those of generators out of service: their four limits are all 0, so the solver
+    reports them as binding, where the case without them has no such labels. Order kept."""
+    gen = np.asarray(gen_in_service, bool)
+    out_ids = {str(int(i)) for i in np.asarray(net.gen_id)[~gen]}
+    return tuple(lab for lab in binding
+                 if not (lab.startswith("gen:") and lab.split(":")[1] in out_ids))
 
 
 # ---- single outages ----------------------------------------------------------------------
