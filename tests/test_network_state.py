@@ -423,3 +423,22 @@ def test_binding_labels_of_a_generator_out_are_dropped(nets):
     assert g[0, 3] - g[0, 2] <= 1e-2  # case14 generator at bus 1: QG at QMAX
     assert not np.any(np.abs(g[1:, 1] - g[1:, 8]) <= 1e-2)  # no other generator at PMAX
     assert binding_signature(kept) != res.signature
+
+
+def test_check_states_names_the_first_sample_with_a_refused_state(nets):
+    from flowgauge.network._state import check_states
+    net = nets["ieee14"]
+    br = np.ones((4, 20), bool)
+    gen = np.ones((4, 5), bool)
+    br[1, 0] = False  # 1-2 out: allowed
+    br[2, 13] = br[3, 13] = False  # 7-8 out: bus 8 cut off (case14), rows 2 and 3
+    with pytest.raises(InputError, match=r"islanding: bus 7 \(id 8\)") as exc:
+        check_states(net, br, gen, np.array([10, 11, 12, 13]))
+    assert exc.value.where == "sample 12: branch 13 (id 14)"
+    b, g = check_states(net, br[:2], gen[:2], np.array([10, 11]))
+    assert b.shape == (2, 20) and g.dtype == bool
+    with pytest.raises(InputError, match=r"expected shape \(2, 5\)") as exc:
+        check_states(net, br[:2], gen[:2, :4], np.array([10, 11]))
+    assert exc.value.where == "gen_in_service"
+    with pytest.raises(InputError, match="dtype int64"):
+        check_states(net, br[:2].astype(np.int64), gen[:2], np.array([10, 11]))

@@ -26,7 +26,7 @@ __all__ = [
     "ISLANDING", "ISLAND_WITHOUT_GENERATION", "REFERENCE_WITHOUT_GENERATION", "REASONS",
     "StateProblem", "Rejection", "SingleOutages", "GraphView", "EDGE_FEATURES", "NODE_FEATURES",
     "intact_state", "check_state", "state_problem", "network_in_state", "single_outages",
-    "group_states", "binding_in_state", "sample_graph",
+    "group_states", "check_states", "binding_in_state", "sample_graph",
 ]
 
 # Reasons a state is refused, in the order they are checked.
@@ -231,6 +231,36 @@ def group_states(branch_in_service: np.ndarray, gen_in_service: np.ndarray) -> t
     rank[order] = np.arange(order.size)
     keep = np.sort(first)
     return br[keep], gen[keep], rank[np.ravel(inverse)].astype(np.int64)
+
+
+def check_states(net: Network, branch_in_service, gen_in_service, sample_id) -> tuple[np.ndarray, np.ndarray]:
+    """Many samples' states at once: flags (S, n_branch) and (S, n_gen), ``sample_id`` (S,).
+
+    Checks shapes and types, then each distinct state (:func:`group_states`) by
+    :func:`check_state` and :func:`state_problem`; the first problem raises :class:`InputError`
+    naming the first sample (in row order) that has it. Returns the flags as bool arrays.
+    """
+    sid = np.asarray(sample_id)
+    n_s = sid.shape[0] if sid.ndim == 1 else -1
+    out = []
+    for field, value, n in (("branch_in_service", branch_in_service, net.n_branch),
+                            ("gen_in_service", gen_in_service, net.n_gen)):
+        a = np.asarray(value)
+        if n_s < 0 or a.shape != (n_s, n):
+            raise InputError(f"expected shape ({max(n_s, 0)}, {n}) (one row per sample, one flag per element), "
+                             f"got {a.shape}", where=field)
+        if a.dtype.kind != "b":
+            raise InputError(f"expected true/false flags (bool), got values of dtype {a.dtype}", where=field)
+        out.append(a)
+    br, gen = out
+    if n_s == 0:
+        return br.copy(), gen.copy()
+    ub, ug, group = group_states(br, gen)
+    first = np.full(ub.shape[0], n_s)
+    np.minimum.at(first, group, np.arange(n_s))
+    for k in np.argsort(first, kind="stable").tolist():  # loop over distinct states, in row order
+        network_in_state(net, ub[k], ug[k], sample=sid[first[k]].item())
+    return br.copy(), gen.copy()
 
 
 def binding_in_state(binding, net: Network, gen_in_service) -> tuple[str, ...]:
