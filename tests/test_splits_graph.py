@@ -138,3 +138,13 @@ def test_frozen_manifest_unchanged_on_disk(frozen):
     # loading never writes: the manifest's recorded split hash is the one in the file
     m = json.loads((splits_root() / FROZEN / "manifest.json").read_text())
     assert m["split_hash"] == frozen.split_hash
+
+
+def test_to_pandas_shows_state_columns_only_when_present(with_states, frozen):
+    folder, br, gen = with_states
+    df = load_split(folder, references=False).to_pandas()
+    # ieee14 element ids (PYPOWER case14 order): branch id 1 is 1-2, generator id 2 at bus 2
+    assert not df["branch_in_service:1"].iloc[0] and df["branch_in_service:1"].iloc[1]
+    assert not df["gen_in_service:2"].iloc[1]
+    assert df.filter(like="in_service").shape[1] == 20 + 5
+    assert not any("in_service" in c for c in frozen.to_pandas().columns)

@@ -201,12 +201,16 @@ class Split:
 
     def to_pandas(self):
         """One row per sample, one column per element value (``pd_mw:<load id>``, ``pg_mw:<gen id>``,
-        ``vm_pu:<bus id>``, ...) plus the per-sample reference columns."""
+        ``vm_pu:<bus id>``, ..., and ``branch_in_service:<branch id>``, ``gen_in_service:<gen id>``
+        for splits with per-sample states) plus the per-sample reference columns."""
         import pandas as pd
         blocks = [pd.DataFrame({"sample_id": self.sample_id})]
         def block(prefix, arr, ids):
             return pd.DataFrame(arr, columns=[f"{prefix}:{i}" for i in ids.tolist()])
         blocks += [block("pd_mw", self.pd_mw, self.load_id), block("qd_mvar", self.qd_mvar, self.load_id)]
+        if self.has_states:  # per-sample states: one bool column per branch and generator
+            blocks += [block("branch_in_service", self.branch_in_service, self.branch_id),
+                       block("gen_in_service", self.gen_in_service, self.gen_id)]
         r = self.references
         if r is not None:
             blocks += [block("pg_mw", r.pg_mw, self.gen_id), block("qg_mvar", r.qg_mvar, self.gen_id),
