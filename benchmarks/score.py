@@ -32,8 +32,21 @@ first --pandapower samples and its ratio to ours (target at least 50), with the 
 samples where pandapower holds the same generators as we do and the largest voltage difference
 on those (pandapower never returns a bus to PV, our rule does: docs/powerflow.md).
 
+Scale (``--scale``, section ``scale`` of its own file ``score_scale.json``): the whole scorer core
+(``score_arrays``) on --scale-samples synthetic samples of ``activsg2000`` built as above, with
+the ``reactive-limits`` profile and with ``strict``, with 1 and 2 local worker processes. Each
+run happens in a fresh child process (``--scale-child``), so nothing is cached from an earlier
+run; the parent samples the resident memory of the child and of every process under it with
+psutil every 20 ms (peak of the sum: the process tree's peak) and the child reports its own
+``ru_maxrss`` and the largest one among its worker processes. Wall time is that of
+``score_arrays`` alone (inputs built before the clock starts); samples per second and, when
+fewer than 10,000 samples ran, the time for 10,000 at the same rate (samples are independent
+and solved in fixed chunks, so time grows linearly in the count). Target: 10,000 samples in
+at most 60 s with 2 workers and at most 4 GB peak.
+
 Usage: python benchmarks/score.py [--samples 10000] [--networks ieee14,ieee118] [--pandapower 30] [--quick]
-Writes benchmarks/results/score.json. Medians of --repeat runs.
+       python benchmarks/score.py --scale [--scale-samples 10000[,N2,...]] [--scale-repeat 1]
+Writes benchmarks/results/score.json (or score_scale.json with --scale). Medians of --repeat runs.
 """
 
 from __future__ import annotations
@@ -42,7 +55,10 @@ import argparse
 import json
 import os
 import platform
+import resource
 import statistics
+import subprocess
+import sys
 import time
 import warnings
 from pathlib import Path
@@ -58,6 +74,9 @@ from flowgauge.scoring import (DEFAULT_PROFILE, REACTIVE_LIMITS_PROFILE, STRICT_
                                restore, score_arrays)
 
 OUT = Path(__file__).parent / "results" / "score.json"
+OUT_SCALE = Path(__file__).parent / "results" / "score_scale.json"
+SCALE_NETWORK = "activsg2000"
+SCALE_TARGET = {"samples": 10000, "workers": 2, "seconds_at_most": 60.0, "peak_memory_bytes_at_most": 4e9}
 
 
 def inputs(net, samples: int, seed: int):
@@ -228,7 +247,120 @@ def time_reactive_limits(name: str, repeat: int, pp_samples: int, seed: int, sam
     return out
 
 
+def scale_child(network: str, samples: int, seed: int, profile: str, workers: int) -> None:
+    """One scale run in this process; prints one JSON line (run by :func:`scale_run`)."""
+    net = load_network(network)
+    pd, qd, pg, vm, ref = inputs(net, samples, seed)
+    t0 = time.perf_counter()
+    agg, table = score_arrays(net, sample_id=np.arange(samples), pd_mw=pd, qd_mvar=qd, reference_cost_per_h=ref,
+                              pg_mw=pg, vm_pu=vm, profile=profile, workers=workers)
+    seconds = time.perf_counter() - t0
+    kib = 1024  # ru_maxrss is in KiB on Linux
+    print(json.dumps({
+        "seconds": seconds,
+        "self_maxrss_bytes": resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * kib,
+        "largest_worker_maxrss_bytes": resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss * kib,
+        "restoration_failure_rate": agg["restoration_failure_rate"],
+        "diverged_share": agg["restoration_failure_causes"]["diverged"],
+        "iterations_mean": float(table["restoration_iterations"].mean()),
+    }), flush=True)
+
+
+def scale_run(network: str, samples: int, seed: int, profile: str, workers: int) -> dict:
+    """Run :func:`scale_child` in a fresh process and sample the memory of its process tree."""
+    import psutil
+
+    cmd = [sys.executable, str(Path(__file__).resolve()), "--scale-child", network, str(samples), str(seed),
+           profile, str(workers)]
+    proc = subprocess.Popen(cmd, stdout=subprocess.PIPE, text=True)
+    root = psutil.Process(proc.pid)
+    peak, peak_procs = 0, 0
+    while proc.poll() is None:
+        try:
+            tree = [root] + root.children(recursive=True)
+        except psutil.NoSuchProcess:
+            break
+        total = 0
+        for q in tree:
+            try:
+                total += q.memory_info().rss
+            except psutil.NoSuchProcess:
+                pass
+        if total > peak:
+            peak, peak_procs = total, len(tree)
+        time.sleep(0.02)
+    out, _ = proc.communicate()
+    if proc.returncode != 0:
+        raise SystemExit(f"scale run {cmd} failed with exit code {proc.returncode}")
+    got = json.loads(out.strip().splitlines()[-1])
+    got.update({"tree_peak_rss_bytes": peak, "processes_at_peak": peak_procs})
+    return got
+
+
+def time_scale(samples: int, repeat: int, seed: int, extra: tuple[int, ...] = ()) -> dict:
+    out = {"network": SCALE_NETWORK, "samples": samples, "repeat": repeat, "runs": {}}
+    for profile in (REACTIVE_LIMITS_PROFILE.name, STRICT_PROFILE.name):
+        for workers in (1, 2):
+            runs = [scale_run(SCALE_NETWORK, samples, seed, profile, workers) for _ in range(repeat)]
+            med = statistics.median(r["seconds"] for r in runs)
+            rate = samples / med
+            row = {"profile": profile, "workers": workers, "seconds": [r["seconds"] for r in runs],
+                   "seconds_median": med, "samples_per_second": rate,
+                   "seconds_for_10000_samples": SCALE_TARGET["samples"] / rate,
+                   "tree_peak_rss_bytes_max": max(r["tree_peak_rss_bytes"] for r in runs),
+                   "processes_at_peak": runs[0]["processes_at_peak"],
+                   "self_maxrss_bytes_max": max(r["self_maxrss_bytes"] for r in runs),
+                   "largest_worker_maxrss_bytes_max": max(r["largest_worker_maxrss_bytes"] for r in runs),
+                   "restoration_failure_rate": runs[0]["restoration_failure_rate"],
+                   "diverged_share": runs[0]["diverged_share"],
+                   "iterations_mean": runs[0]["iterations_mean"]}
+            out["runs"][f"{profile}/workers={workers}"] = row
+            print("scale", profile, workers, json.dumps(row), flush=True)
+    rl = out["runs"][f"{REACTIVE_LIMITS_PROFILE.name}/workers=2"]
+    # more sample counts for the target configuration: time and memory against the count
+    curve = [(samples, rl["seconds_median"], rl["tree_peak_rss_bytes_max"])]
+    for more in extra:
+        r = scale_run(SCALE_NETWORK, more, seed, REACTIVE_LIMITS_PROFILE.name, 2)
+        curve.append((more, r["seconds"], r["tree_peak_rss_bytes"]))
+        print("scale curve", more, json.dumps(r), flush=True)
+    out["target_configuration_by_samples"] = [{"samples": c, "seconds": t, "tree_peak_rss_bytes": m}
+                                              for c, t, m in curve]
+    if len(curve) > 1:  # straight line through the points (least squares), evaluated at 10,000
+        c = np.array([x[0] for x in curve], float)
+        out["extrapolated_to_10000_samples"] = {
+            "seconds": float(np.polyval(np.polyfit(c, [x[1] for x in curve], 1), SCALE_TARGET["samples"])),
+            "tree_peak_rss_bytes": float(np.polyval(np.polyfit(c, [x[2] for x in curve], 1),
+                                                    SCALE_TARGET["samples"])),
+            "note": "linear fit over the sample counts above; not measured at 10,000"}
+    out["target"] = dict(SCALE_TARGET)
+    out["seconds_for_10000_samples_to_target_ratio"] = rl["seconds_for_10000_samples"] / SCALE_TARGET["seconds_at_most"]
+    peak = out.get("extrapolated_to_10000_samples", {}).get("tree_peak_rss_bytes", rl["tree_peak_rss_bytes_max"])
+    out["peak_memory_to_target_ratio"] = peak / SCALE_TARGET["peak_memory_bytes_at_most"]
+    out["met"] = bool(out["seconds_for_10000_samples_to_target_ratio"] <= 1.0 and out["peak_memory_to_target_ratio"] <= 1.0
+                      and samples >= SCALE_TARGET["samples"])
+    out["reactive_limits_to_strict_ratio"] = {
+        f"workers={w}": out["runs"][f"{REACTIVE_LIMITS_PROFILE.name}/workers={w}"]["seconds_median"]
+        / out["runs"][f"{STRICT_PROFILE.name}/workers={w}"]["seconds_median"] for w in (1, 2)}
+    return out
+
+
+def main_scale(args) -> None:
+    t_start = time.perf_counter()
+    counts = [int(x) for x in str(args.scale_samples).split(",")]
+    res = time_scale(counts[0], args.scale_repeat, args.seed, tuple(counts[1:]))
+    doc = {"benchmark": "score", "section": "scale", "flowgauge_version": __version__,
+           "python": platform.python_version(), "machine": platform.machine(), "cpus": os.cpu_count(),
+           "seconds_total": time.perf_counter() - t_start, "load_average": list(os.getloadavg()), "scale": res}
+    OUT_SCALE.parent.mkdir(parents=True, exist_ok=True)
+    atomic_write_text(OUT_SCALE, json.dumps(doc, indent=1, sort_keys=True) + "\n")
+    print(f"wrote {OUT_SCALE}")
+
+
 def main() -> None:
+    if len(sys.argv) == 7 and sys.argv[1] == "--scale-child":
+        net_name, n, seed, prof, workers = sys.argv[2:]
+        scale_child(net_name, int(n), int(seed), prof, int(workers))
+        return
     ap = argparse.ArgumentParser()
     ap.add_argument("--samples", type=int, default=10000)
     ap.add_argument("--networks", default="ieee14,ieee30,ieee57,ieee118,ieee300")
@@ -236,7 +368,18 @@ def main() -> None:
     ap.add_argument("--repeat", type=int, default=3)
     ap.add_argument("--seed", type=int, default=11)
     ap.add_argument("--quick", action="store_true", help="1000 samples, 10 with pandapower, 1 repeat")
+    ap.add_argument("--scale", action="store_true", help=f"only the scale section ({SCALE_NETWORK}), into "
+                                                          f"{OUT_SCALE.name}")
+    ap.add_argument("--scale-samples", default="10000",
+                    help="sample count of every scale run; more counts after commas are run only with "
+                         "reactive-limits and 2 workers (time and memory against the count)")
+    ap.add_argument("--scale-repeat", type=int, default=1, help="fresh runs per configuration (median)")
     args = ap.parse_args()
+    if args.scale:
+        if args.quick:
+            args.scale_samples = "512"
+        main_scale(args)
+        return
     if args.quick:
         args.samples, args.pandapower, args.repeat = 1000, 10, 1
     results = {}

@@ -1,4 +1,5 @@
-"""``flowgauge splits``: build, verify, show and publish frozen splits."""
+"""``flowgauge splits``: build, verify, show and publish frozen splits; write recipes and
+rebuild splits from them."""
 
 from __future__ import annotations
 
@@ -9,14 +10,14 @@ import click
 from rich.table import Table
 
 from ..errors import InputError
-from ._common import console, err_console
+from ._common import console, err_console, shown
 
 SPLIT_CHOICES = ["train", "test-id", "test-ood", "test-edge"]
 
 
 @click.group()
 def splits() -> None:
-    """Build, verify, show and publish frozen splits."""
+    """Build, verify, show and publish frozen splits; write recipes and rebuild from them."""
 
 
 class _Progress:
@@ -71,6 +72,52 @@ def build(network, split, samples, seed, out, workers, scheduler, chunk, notes, 
         progress.stop()
     rej = sum(m["rejected"].values())
     console.print(f"{out}: {m['samples']} samples, {rej} draws rejected, split_hash {m['split_hash']}")
+
+
+@splits.command(short_help="Write the recipe that rebuilds a split.")
+@click.argument("split")
+@click.option("--out", "out", type=click.Path(dir_okay=False), required=True,
+              help="Recipe file to write (committed as recipes/<network>/<split>.json).")
+@click.option("--chunk", type=click.IntRange(min=1), default=10, show_default=True,
+              help="Samples per chunk of the rebuild (does not change the content).")
+@click.option("--max-attempts", type=click.IntRange(min=1), default=100, show_default=True,
+              help="Draws tried per sample in the rebuild (at least what the build needed; does not change "
+                   "the content).")
+@click.option("--train", "train", type=click.Path(file_okay=False), default=None,
+              help="The training split a test split was built beside (default: the sibling folder train).")
+def recipe(split, out, chunk, max_attempts, train) -> None:
+    """Write the recipe of SPLIT (a split folder, NETWORK/SPLIT or a split hash) to --out."""
+    from ..splits import recipe_from_split, write_recipe
+    r = recipe_from_split(split, chunk=chunk, max_attempts=max_attempts, train=train)
+    path = write_recipe(r, out)
+    console.print(f"{shown(path, 200)}: recipe of {shown(r['network']['name'])}/{r['split']}, {r['samples']} samples, "
+                  f"identity_hash {r['expected']['identity_hash']}")
+
+
+@splits.command(short_help="Rebuild a split from its recipe and check every hash.")
+@click.argument("recipe_file", metavar="RECIPE")
+@click.option("--out", "out", type=click.Path(file_okay=False), default=None,
+              help="Folder to create (default: <splits root>/<network>/<split>).")
+@click.option("--workers", type=click.IntRange(min=1), default=1, show_default=True, help="Local worker processes.")
+@click.option("--scheduler", default=None, help="Dask scheduler address (tcp://HOST:PORT) instead of local workers.")
+@click.option("--network", "network", type=click.Path(dir_okay=False), default=None,
+              help="Network file, for a recipe whose network is not bundled.")
+@click.option("--train", "train", type=click.Path(file_okay=False), default=None,
+              help="For a test split: the training split to build beside (default: the sibling folder train).")
+@click.option("--quiet", is_flag=True, help="No progress bar.")
+@click.option("--fresh", is_flag=True, help="Delete the chunks of an interrupted build of --out and start over.")
+def rebuild(recipe_file, out, workers, scheduler, network, train, quiet, fresh) -> None:
+    """Rebuild the split RECIPE describes (a recipe file or NETWORK/SPLIT under recipes/) and check it
+    against the recipe's hashes as it goes; exit 3 at the first difference, naming the sample and file."""
+    from ..splits import build_from_recipe
+    progress = _Progress(quiet)
+    try:
+        m = build_from_recipe(recipe_file, out=out, workers=workers, scheduler=scheduler, network=network,
+                              train=train, fresh=fresh, progress=progress)
+    finally:
+        progress.stop()
+    console.print(f"{m['network']['name']}/{m['split']}: {m['samples']} samples reproduce the recipe, "
+                  f"identity_hash {m['identity_hash']} (split_hash {m['split_hash']})")
 
 
 @splits.command(short_help="Recompute every hash of frozen splits.")

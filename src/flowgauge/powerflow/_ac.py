@@ -21,7 +21,7 @@ __all__ = ["solve_powerflow", "solve_powerflow_batch", "INITS", "default_vm_pu"]
 INITS = ("flat", "dc", "given")
 _EPS = np.finfo(float).eps
 # Samples per Newton chunk: at most this many float entries in the largest working array.
-BATCH_ENTRIES = 2.5e7
+BATCH_ENTRIES = 6e6
 
 
 def default_vm_pu(net: Network) -> np.ndarray:
@@ -111,6 +111,9 @@ def _run(p, pv, pq, vm0, va0, sbus, tol, max_iter, linear, hold=None):
     per_sample = max(lu.nnz if lu is not None else 0, 4 * pat.nnz)
     rows = max(1, int(BATCH_ENTRIES // per_sample))
     n_s = sbus.shape[0]
+    if n_s > rows:  # equal pieces rather than full ones and a small remainder (samples are independent)
+        pieces = -(-n_s // rows)
+        rows = -(-n_s // pieces)
     if n_s <= rows:
         return newton(pat, p.adm.ybus, vm0, va0, sbus, tol, int(max_iter), linear, hold)
     tols = np.broadcast_to(np.asarray(tol, dtype=float), (n_s,))

@@ -37,6 +37,40 @@ def _ones(rows: np.ndarray, n_rows: int) -> sp.csr_matrix:
     return sp.csr_matrix((np.ones(rows.size), (rows, np.arange(rows.size))), shape=(n_rows, rows.size))
 
 
+def _groups(key: np.ndarray, n_groups: int) -> list[np.ndarray]:
+    """Positions of ``key`` equal to 0, 1, ..., n_groups - 1, each in increasing order (what
+    ``np.flatnonzero(key == g)`` gives for every g)."""
+    order = np.argsort(key, kind="stable")
+    bounds = np.searchsorted(key[order], np.arange(n_groups + 1))
+    return [order[bounds[g]:bounds[g + 1]] for g in range(n_groups)]
+
+
+def _summing(targets: np.ndarray) -> tuple[np.ndarray, sp.csr_matrix | None]:
+    """Where the terms of a step go: (targets, matrix summing the terms into them). Where no
+    target repeats, the terms go straight to their targets (matrix None) and ``targets`` keeps
+    the terms' order; otherwise ``targets`` are the distinct ones, sorted."""
+    tt, inv = np.unique(targets, return_inverse=True)
+    if tt.size == targets.size:
+        return targets, None
+    return tt, _ones(inv, tt.size)
+
+
+def _apply(op, x: np.ndarray, y: np.ndarray) -> np.ndarray:
+    """``op(x, y)`` written into ``x`` (a fresh gathered copy): one temporary less."""
+    return op(x, y, out=x)
+
+
+def _minus(x: np.ndarray, m: sp.csr_matrix | None, terms: np.ndarray) -> np.ndarray:
+    """``x`` minus the terms summed into their targets, written into ``x`` (a fresh gathered
+    copy). Without a matrix (no target repeats) each term is first added to 0.0: bit for bit
+    what the sparse product gives (it starts each sum at 0.0, and 0.0 + -0.0 is +0.0)."""
+    if m is None:
+        terms += 0.0
+    else:
+        terms = m @ terms
+    return np.subtract(x, terms, out=x)
+
+
 def fill_reducing_order(pat: JacobianPattern, seed: int = 0) -> np.ndarray:
     """A symmetric fill-reducing ordering of the pattern (``old_of_new``, shape (n,)): minimum
     degree on A + A^T, from SuperLU run on a diagonally dominant matrix with the pattern.
@@ -121,18 +155,19 @@ class StackedLU:
         if not np.array_equal(self._keys[np.minimum(t, self.nnz - 1)], fr[a] * n + fc[b]):
             raise RuntimeError("an update falls outside the filled pattern")
         k_of_update = fc[a]
+        # the pivots, L entries, updates and U entries of each level, in increasing index order
+        # (a stable sort by level: one pass instead of one search per level)
+        by_piv, by_low = _groups(level, self.n_levels), _groups(level[lk], self.n_levels)
+        by_upd, by_upp = _groups(level[k_of_update], self.n_levels), _groups(level[fr[upp]], self.n_levels)
         self.factor_steps, self.forward_steps, self.backward_steps = [], [], []
         for lev in range(self.n_levels):  # loop over elimination levels, each vectorised
-            piv = np.flatnonzero(level == lev)
-            ls = low[np.isin(lk, piv)]
-            us = np.flatnonzero(np.isin(k_of_update, piv))
-            tt, inv = np.unique(t[us], return_inverse=True)
-            self.factor_steps.append((ls, self.diag[fc[ls]], a[us], b[us], tt, _ones(inv, tt.size)))
-            ri, rinv = np.unique(fr[ls], return_inverse=True)
-            self.forward_steps.append((ls, fc[ls], ri, _ones(rinv, ri.size)))
-            ub = upp[np.isin(fr[upp], piv)]
-            kk, kinv = np.unique(fr[ub], return_inverse=True)
-            self.backward_steps.append((piv, ub, fc[ub], kk, _ones(kinv, kk.size)))
+            piv = by_piv[lev]
+            ls = low[by_low[lev]]
+            us = by_upd[lev]
+            self.factor_steps.append((ls, self.diag[fc[ls]], a[us], b[us], *_summing(t[us])))
+            self.forward_steps.append((ls, fc[ls], *_summing(fr[ls])))
+            ub = upp[by_upp[lev]]
+            self.backward_steps.append((piv, ub, fc[ub], *_summing(fr[ub]), self.diag[piv]))
         self.backward_steps.reverse()
 
     def solve(self, data: np.ndarray, rhs: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -147,19 +182,25 @@ class StackedLU:
         """As :meth:`solve`, with ``data`` in the transposed layout (nnz, S)."""
         f = np.zeros((self.nnz, data.shape[1]))
         f[self.j_to_f] = data
+        # rows are gathered with np.take (the same values as f[idx], copied faster); each
+        # "f[i] = take(f, i) - u" is what "f[i] -= u" does, written out
+        take = np.take
         with np.errstate(all="ignore"):
             for ls, ld, a, b, tt, m in self.factor_steps:
-                f[ls] /= f[ld]
+                f[ls] = _apply(np.divide, take(f, ls, axis=0), take(f, ld, axis=0))
                 if a.size:
-                    f[tt] -= m @ (f[a] * f[b])
+                    f[tt] = _minus(take(f, tt, axis=0), m, _apply(np.multiply, take(f, a, axis=0),
+                                                                   take(f, b, axis=0)))
             y = np.ascontiguousarray(rhs.T[self.old_of_new])
             for ls, lk, ri, m in self.forward_steps:
                 if ls.size:
-                    y[ri] -= m @ (f[ls] * y[lk])
-            for piv, ub, uj, kk, m in self.backward_steps:
+                    y[ri] = _minus(take(y, ri, axis=0), m, _apply(np.multiply, take(f, ls, axis=0),
+                                                                   take(y, lk, axis=0)))
+            for piv, ub, uj, kk, m, dpiv in self.backward_steps:
                 if ub.size:
-                    y[kk] -= m @ (f[ub] * y[uj])
-                y[piv] /= f[self.diag[piv]]
+                    y[kk] = _minus(take(y, kk, axis=0), m, _apply(np.multiply, take(f, ub, axis=0),
+                                                                   take(y, uj, axis=0)))
+                y[piv] = _apply(np.divide, take(y, piv, axis=0), take(f, dpiv, axis=0))
             x = y[self.new_of_old].T
             ok = self._residual_ok(data, x, rhs)
         return np.ascontiguousarray(x), ok

@@ -145,16 +145,22 @@ def _connect(scheduler: str):
         raise InputError(f"cannot connect to a Dask scheduler ({exc})", where=f"--scheduler {scheduler}") from exc
 
 
-def _run_chunks(net, arrays, powerflow, workers, scheduler, progress) -> list[dict]:
+def _run_chunks(net, arrays, powerflow, workers, scheduler, progress) -> dict[str, np.ndarray]:
+    """Solve every chunk and return the fields of all samples, each array allocated once and
+    filled as the chunks arrive (a chunk's own arrays are dropped once copied)."""
     n = arrays[0].shape[0]
     pieces = _chunks(n, int(powerflow.get("chunk_samples", CHUNK_SAMPLES)))
     parts = [tuple(a[s] for a in arrays) for s in pieces]
-    out: list[dict] = []
+    out: dict[str, np.ndarray] = {}
 
     def collect(results):
         done = 0
         for s, res in zip(pieces, results):
-            out.append(res)
+            for k, v in res.items():
+                if k not in out:
+                    out[k] = np.empty((n,) + v.shape[1:], v.dtype)
+                out[k][s] = v
+            del res
             done += s.stop - s.start
             if progress is not None:
                 progress(done, n)
@@ -186,18 +192,29 @@ def restore(net: Network, *, pd_mw, qd_mvar, pg_mw, vm_pu, profile: ScoringProfi
     """
     arrays = [np.ascontiguousarray(a, dtype=float) for a in (pd_mw, qd_mvar, pg_mw, vm_pu)]
     n = arrays[0].shape[0]
-    parts = _run_chunks(net, arrays, dict(profile.powerflow), workers, scheduler, progress)
-    got = {k: np.concatenate([p[k] for p in parts]) if parts else np.zeros((0,)) for k in _FIELDS}
+    got = _run_chunks(net, arrays, dict(profile.powerflow), workers, scheduler, progress)
+    if n == 0:
+        got = {k: np.zeros((0,)) for k in _FIELDS}
     conv = got["converged"].astype(bool).reshape(n)
-    state = {k: np.where(conv.reshape((n,) + (1,) * (got[k].ndim - 1)), got[k], np.nan)
-             for k in ("vm_pu", "va_deg", "pg_mw", "qg_mvar", "sf_mva", "st_mva")}
+    # values of diverged samples are NaN: set in place in the arrays just filled (no copy)
+    state = {k: np.asarray(got[k], float) for k in ("vm_pu", "va_deg", "pg_mw", "qg_mvar", "sf_mva", "st_mva")}
+    if not conv.all():
+        for v in state.values():
+            v[~conv] = np.nan
     iterations = got["iterations"].astype(np.int64).reshape(n)
     if profile.grading is None:
         return _judge(net, conv, iterations, state, profile)
-    unsettled = np.concatenate([p["unsettled"] for p in parts]) if parts else np.zeros(0, bool)
-    at_limit = np.concatenate([p["at_q_limit"] for p in parts]) if parts else np.zeros((0, net.n_gen), np.int8)
+    unsettled = got.get("unsettled", np.zeros(0, bool))
+    at_limit = got.get("at_q_limit", np.zeros((0, net.n_gen), np.int8))
     return _judge_graded(net, conv, unsettled.reshape(n), iterations, state, at_limit.reshape(n, net.n_gen),
                          profile)
+
+
+def _converged_rows(state: dict, conv: np.ndarray) -> dict:
+    """The rows of converged samples; the arrays themselves (no copy) when every sample converged."""
+    if conv.all():
+        return state
+    return {k: v[conv] for k, v in state.items()}
 
 
 def causes_of(profile: ScoringProfile) -> dict[str, str]:
@@ -205,9 +222,10 @@ def causes_of(profile: ScoringProfile) -> dict[str, str]:
     return GRADED_CAUSES if profile.grading is not None else CAUSES
 
 
-def _judge(net: Network, conv: np.ndarray, iterations: np.ndarray, state: dict, profile: ScoringProfile) -> Restoration:
+def _judge(net: Network, conv: np.ndarray, iterations: np.ndarray, state: dict, profile: ScoringProfile,
+           ok: dict | None = None) -> Restoration:
     n = conv.shape[0]
-    ok = {k: v[conv] for k, v in state.items()}
+    ok = _converged_rows(state, conv) if ok is None else ok
     fams = {
         "restored_active_power_mw": bound_violation(ok["pg_mw"], net.pmin_mw, net.pmax_mw, input_name="restored pg_mw"),
         "restored_reactive_power_mvar": bound_violation(ok["qg_mvar"], net.qmin_mvar, net.qmax_mvar,
@@ -242,9 +260,9 @@ def _judge(net: Network, conv: np.ndarray, iterations: np.ndarray, state: dict, 
 def _judge_graded(net: Network, conv, unsettled, iterations, state: dict, at_limit, profile) -> Restoration:
     """Profile with grading: the families of the strict judge as magnitudes, but violations
     judged element by element against each element's own tolerance (``_grading``)."""
-    base = _judge(net, conv, iterations, state, profile)
+    ok = _converged_rows(state, conv)
+    base = _judge(net, conv, iterations, state, profile, ok)
     n = conv.shape[0]
-    ok = {k: v[conv] for k, v in state.items()}
     excess = element_excess(net, profile.tolerances, pg_mw=ok["pg_mw"], qg_mvar=ok["qg_mvar"], vm_pu=ok["vm_pu"],
                             sf_mva=ok["sf_mva"], st_mva=ok["st_mva"], va_deg=ok["va_deg"])
     ratios = tolerance_ratios(excess, n, np.flatnonzero(conv))

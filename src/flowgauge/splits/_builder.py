@@ -25,7 +25,7 @@ from ._store import (BINDING_SEP, INPUTS_FILE, MANIFEST_FILE, REFERENCES_FILE, i
                      references_table, solution_hash, table_columns, write_table)
 from ._worker import ACCEPTANCE, MAX_ATTEMPTS, Job, read_chunk, solve_chunk, solver_settings, write_chunk
 
-__all__ = ["BuildProgress", "build_split", "partial_dir", "DEFAULT_CHUNK"]
+__all__ = ["BuildProgress", "build_split", "partial_dir", "train_identity", "DEFAULT_CHUNK"]
 
 DEFAULT_CHUNK = 10
 
@@ -123,8 +123,32 @@ def _file_entry(path: str, table, with_solution: bool) -> dict[str, Any]:
     return entry
 
 
+def _tables(sid: np.ndarray, data: dict, train_signatures) -> tuple:
+    """The inputs and references tables of samples ``sid`` (a chunk or the whole split), and
+    per sample whether its regime occurs in the training split (None without one)."""
+    t_in = inputs_table(sid, data["pd_mw"], data["qd_mvar"], kind=data.get("kind"))
+    ref_cols = dict(data)
+    ref_cols["binding"] = [tuple(b.split(BINDING_SEP)) if b else () for b in data["binding"].tolist()]
+    seen = None
+    if train_signatures is not None:
+        seen = np.isin(data["signature"].astype(str), train_signatures)
+        ref_cols["regime_seen_in_train"] = seen.astype(np.int64)
+    return t_in, references_table(sid, ref_cols), seen, ref_cols["binding"]
+
+
+def _train_signatures(train):
+    return None if train is None or train.references is None else train.references.signature.astype(str)
+
+
+def train_identity(train) -> str:
+    """The identity hash of a training split (a loaded Split): recorded in its manifest, or
+    computed from it for manifests written before recipes."""
+    from ._manifest import compute_identity_hash
+    return train.manifest.get("identity_hash") or compute_identity_hash(train.manifest)
+
+
 def _finish(out: Path, part: Path, net: Network, job: Job, split: str, samples: int,
-            data: dict, rejected: Counter, settings: dict, notes: str, train=None) -> dict[str, Any]:
+            data: dict, rejected: Counter, settings: dict, notes: str, train=None, expect=None) -> dict[str, Any]:
     stage = part / "final"
     if stage.exists():
         shutil.rmtree(stage)
@@ -132,14 +156,7 @@ def _finish(out: Path, part: Path, net: Network, job: Job, split: str, samples: 
     sid = data["slot"]
     if not np.array_equal(sid, np.arange(samples)):
         raise RuntimeError("chunks do not cover the samples exactly")  # a bug, not a user error
-    t_in = inputs_table(sid, data["pd_mw"], data["qd_mvar"], kind=data.get("kind"))
-    ref_cols = dict(data)
-    ref_cols["binding"] = [tuple(b.split(BINDING_SEP)) if b else () for b in data["binding"].tolist()]
-    seen = None
-    if train is not None and train.references is not None:
-        seen = np.isin(data["signature"].astype(str), train.references.signature.astype(str))
-        ref_cols["regime_seen_in_train"] = seen.astype(np.int64)
-    t_ref = references_table(sid, ref_cols)
+    t_in, t_ref, seen, binding = _tables(sid, data, _train_signatures(train))
     write_table(t_in, stage / INPUTS_FILE)
     write_table(t_ref, stage / REFERENCES_FILE)
     network_info = {"name": net.name, "content_hash": job.net_hash}
@@ -157,31 +174,42 @@ def _finish(out: Path, part: Path, net: Network, job: Job, split: str, samples: 
                   "references": _file_entry(REFERENCES_FILE, t_ref, True)},
         "rejected": dict(sorted(rejected.items())), "draws": samples + int(sum(rejected.values())),
         "reference_solve_seconds": _seconds_stats(data["solve_seconds"]), "notes": notes,
-        "coverage": coverage(data["signature"], ref_cols["binding"], data.get("kind"), seen),
-        **({} if seen is None else {"train": {"split_hash": train.split_hash,
+        "coverage": coverage(data["signature"], binding, data.get("kind"), seen),
+        **({} if seen is None else {"train": {"split_hash": train.split_hash, "identity_hash": train_identity(train),
                                               "regimes": int(np.unique(train.references.signature).size)}}),
     })
+    written = json.loads(canonical_json(manifest))  # as written: floats rounded
+    if expect is not None:
+        expect.check_manifest(written, stage)  # a split that differs from its recipe is not put in place
     write_manifest(stage / MANIFEST_FILE, manifest)
     if out.exists():
         out.rmdir()  # checked empty before the build
     out.parent.mkdir(parents=True, exist_ok=True)
     os.replace(stage, out)
     shutil.rmtree(part)
-    return json.loads(canonical_json(manifest))  # as written: floats rounded
+    return written
 
 
 def build_split(network: str | Path | Network, split: str, *, samples: int, seed: int, out: str | Path,
                 workers: int = 1, scheduler: str | None = None, chunk: int = DEFAULT_CHUNK,
                 notes: str = "", progress: Callable[[BuildProgress], None] | None = None,
-                max_attempts: int = MAX_ATTEMPTS, train=None, fresh: bool = False) -> dict[str, Any]:
+                max_attempts: int = MAX_ATTEMPTS, train=None, fresh: bool = False,
+                expect=None) -> dict[str, Any]:
     """Build one split into the folder ``out`` and return its manifest.
 
     Finished chunks are kept in a hidden sibling folder of ``out``; a rerun with the same
     settings resumes from them, a rerun with other settings refuses (naming the setting) unless
     ``fresh``, which deletes them first. ``out`` appears only when everything is written.
     ``train``: the training split (a folder or a loaded Split; default the sibling folder
-    ``train`` of ``out`` when it holds a finished split). Test splits record, per sample, whether
-    its regime occurs in it, and the out-of-distribution design draws unseen regimes from it.
+    ``train`` of ``out`` when it holds a finished split; False: none, even if a sibling
+    exists). Test splits record, per sample, whether its regime occurs in it, and the
+    out-of-distribution design draws unseen regimes from it.
+
+    ``expect``: what the build must reproduce (a recipe's :class:`~flowgauge.splits._recipe.Expectation`).
+    Its ``check_plan(plan)`` runs once the design is fitted, before any sample is solved;
+    ``check_chunk(start, stop, inputs_table, references_table)`` on every chunk, resumed or
+    new, before it is kept; ``check_manifest(manifest, folder)`` before the split is put in
+    place. Each raises :class:`IntegrityError` on a difference.
     """
     if split not in SPLIT_NAMES:
         raise InputError(f"expected one of {', '.join(SPLIT_NAMES)}, got {split!r}", where="split")
@@ -197,10 +225,17 @@ def build_split(network: str | Path | Network, split: str, *, samples: int, seed
               acceptance=tuple(sorted(ACCEPTANCE.items())), max_attempts=max_attempts,
               stream=draw_stream(split, design.name))
     settings = solver_settings()
+    if expect is not None:
+        expect.check_plan(_plan(net, job, split, samples, settings, train))
     part = partial_dir(out)
     chunks_dir = _prepare_partial(part, _fingerprint(job, settings, chunk), fresh)
     ranges = _chunk_ranges(samples, chunk)
     done = {r: read_chunk(_chunk_path(chunks_dir, *r)) for r in ranges if _chunk_path(chunks_dir, *r).exists()}
+    signatures = _train_signatures(train)
+    check = (lambda a, b, result: None) if expect is None else (
+        lambda a, b, result: expect.check_chunk(a, b, *_tables(result["slot"], result, signatures)[:2]))
+    for (a, b), result in sorted(done.items()):
+        check(a, b, result)
     solved = sum(r[1] - r[0] for r in done)
     n_rej = sum(sum(json.loads(str(c["rejected"])).values()) for c in done.values())
     resumed = solved
@@ -209,6 +244,7 @@ def build_split(network: str | Path | Network, split: str, *, samples: int, seed
     todo = [(job, a, b) for (a, b) in ranges if (a, b) not in done]
     try:
         for (_, a, b), result in run_tasks(solve_chunk, todo, workers=workers, scheduler=scheduler):
+            check(a, b, result)  # before it is kept: a differing chunk is never resumed from
             write_chunk(_chunk_path(chunks_dir, a, b), result)
             done[(a, b)] = result
             solved += b - a
@@ -220,12 +256,22 @@ def build_split(network: str | Path | Network, split: str, *, samples: int, seed
             shutil.rmtree(part, ignore_errors=True)
         raise
     data, rejected = _assemble([done[r] for r in ranges])
-    return _finish(out, part, net, job, split, samples, data, rejected, settings, notes, train)
+    return _finish(out, part, net, job, split, samples, data, rejected, settings, notes, train, expect)
+
+
+def _plan(net: Network, job: Job, split: str, samples: int, settings: dict, train) -> dict[str, Any]:
+    """What the build is about to do, in the manifest's terms (for a recipe's check)."""
+    plan = {"network": {"name": net.name, "content_hash": job.net_hash}, "split": split, "samples": samples,
+            "design": {"name": job.design.name, "parameters": job.design.parameters(net)},
+            "seed": job.seed, "seed_rule": SEED_RULE, "solver": settings, "acceptance": dict(job.acceptance)}
+    if _train_signatures(train) is not None:
+        plan["train"] = {"split_hash": train.split_hash, "identity_hash": train_identity(train)}
+    return json.loads(canonical_json(plan))
 
 
 def _train_split(split: str, out: Path, train):
     """The training split a test split refers to (None for training splits or when absent)."""
-    if not split.startswith("test-"):
+    if not split.startswith("test-") or train is False:  # False: build without one
         return None
     from ._load import load_split
     if train is None:

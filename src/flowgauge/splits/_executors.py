@@ -34,9 +34,46 @@ def _local(fn: Callable, tasks: list, workers: int) -> Iterator[tuple[Any, Any]]
                 fut.cancel()
 
 
-def _dask(fn: Callable, tasks: list, address: str) -> Iterator[tuple[Any, Any]]:
+def _pass(value: Any) -> Any:
+    return value
+
+
+def _shared_first_arguments(client, tasks: list) -> dict[int, Any]:
+    """One cluster future per distinct first argument (the build's Job: the network and the
+    design's pilot, megabytes on a large network), so it travels to each worker once instead of
+    inside every task. It is a task, not scattered data: if every worker holding it dies, the
+    scheduler computes it again from its spec."""
+    shared: dict[int, Any] = {}
+    for task in tasks:
+        if task and id(task[0]) not in shared:
+            shared[id(task[0])] = client.submit(_pass, task[0], pure=False)
+    return shared
+
+
+def _chunk_name(task: tuple) -> str:
+    return f"samples {task[1]}..{task[2] - 1}" if len(task) == 3 else "a task"
+
+
+# How often one task may be handed back to us after its workers died (each hand-back is Dask's
+# own ``distributed.scheduler.allowed-failures`` deaths, default 3) before the build stops.
+RESUBMITS = 3
+
+
+def _dask(fn: Callable, tasks: list, address: str, resubmits: int = RESUBMITS) -> Iterator[tuple[Any, Any]]:
+    """Run on a Dask cluster, surviving workers that die mid-build.
+
+    A worker that dies (killed, out of memory, its machine gone) loses the tasks it was running
+    and the results it held: the scheduler reruns them on the remaining or restarted workers
+    (Dask's own resilience: we hold every future until its result is fetched). A task that
+    killed ``allowed-failures`` workers in a row comes back as ``KilledWorker``; it is submitted
+    again, up to ``resubmits`` times, then the build stops naming the chunk (finished chunks are
+    kept: rerun to resume). A chunk depends only on (seed, sample, attempt), so a rerun gives
+    the same bytes. Each result is released once fetched, so the cluster's memory holds only
+    the chunks in flight, however long the build.
+    """
     try:
         from dask.distributed import Client, as_completed
+        from distributed.scheduler import KilledWorker
     except ImportError:
         raise InputError("a Dask scheduler needs the optional extra 'cluster' "
                          "(pip install 'flowgauge[cluster]')", where="--scheduler") from None
@@ -45,12 +82,35 @@ def _dask(fn: Callable, tasks: list, address: str) -> Iterator[tuple[Any, Any]]:
     except (OSError, TimeoutError, ValueError) as exc:
         raise InputError(f"cannot reach the Dask scheduler ({exc})", where=address) from None
     try:
-        futures = {}
+        shared = _shared_first_arguments(client, tasks)
+
+        def submit(task):
+            # pure=False: a resubmitted task gets a new key, never the failed one's state
+            return client.submit(fn, shared.get(id(task[0]), task[0]), *task[1:], pure=False, retries=0)
+        pending = {}  # key -> (task, times handed back)
+        futures = []
         for task in tasks:
-            fut = client.submit(fn, *task, pure=False)
-            futures[fut.key] = (fut, task)
-        for fut in as_completed([f for f, _ in futures.values()]):
-            yield futures[fut.key][1], fut.result()
+            fut = submit(task)
+            pending[fut.key] = (task, 0)
+            futures.append(fut)
+        queue = as_completed(futures)
+        del futures  # the queue and ``pending`` hold what is still to come
+        for fut in queue:
+            task, tries = pending.pop(fut.key)
+            try:
+                result = fut.result()
+            except KilledWorker:
+                if tries >= resubmits:
+                    raise InputError(f"this chunk killed Dask workers {tries + 1} times over (each time as many "
+                                     "as the scheduler allows): out of memory? Finished chunks are kept; give the "
+                                     "workers more memory and rerun to resume", where=_chunk_name(task)) from None
+                again = submit(task)
+                pending[again.key] = (task, tries + 1)
+                queue.add(again)
+                continue
+            finally:
+                fut.release()  # the cluster keeps no result we already have
+            yield task, result
     finally:
         client.close()
 

@@ -1,0 +1,64 @@
+"""The Dask path survives a worker killed mid-build: the build finishes with the same hashes as a
+serial build. Chunks depend only on (seed, sample, attempt), so a chunk rerun elsewhere gives the
+same bytes (docs/splits.md, "Distributed builds")."""
+
+import os
+import signal
+import time
+
+import pytest
+
+from flowgauge.splits import build_split
+
+distributed = pytest.importorskip("dask.distributed")
+dask = pytest.importorskip("dask")
+
+SEED = 11
+SAMPLES = 24
+CHUNK = 2  # 12 tasks: several still in flight when the worker dies
+
+
+def _hashes(m):
+    f = m["files"]
+    return f["inputs"]["hash"], f["references"]["solution_hash"], m["identity_hash"], m["rejected"]
+
+
+@pytest.fixture(scope="module")
+def serial(tmp_path_factory):
+    out = tmp_path_factory.mktemp("serial") / "ieee14" / "test-edge"
+    return build_split("ieee14", "test-edge", samples=SAMPLES, seed=SEED, out=out, chunk=CHUNK)
+
+
+def _busy_worker_pid(client, timeout=20.0):
+    """(address, pid) of a worker that is running a task now."""
+    deadline = time.monotonic() + timeout
+    while time.monotonic() < deadline:
+        busy = [addr for addr, keys in client.processing().items() if keys]
+        if busy:
+            return busy[0], client.run(os.getpid, workers=[busy[0]])[busy[0]]
+        time.sleep(0.01)
+    raise AssertionError("no worker was running a task")
+
+
+# allowed-failures 3 (Dask's default): the scheduler reruns the dead worker's tasks itself;
+# 0: the dead worker's running task comes back as KilledWorker and the builder submits it again
+@pytest.mark.parametrize("allowed_failures", [3, 0])
+def test_a_worker_killed_mid_build_changes_nothing(serial, tmp_path, allowed_failures):
+    killed = {}
+    with dask.config.set({"distributed.scheduler.allowed-failures": allowed_failures}), \
+            distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True, host="127.0.0.1",
+                                     dashboard_address=None) as cluster, \
+            distributed.Client(cluster) as client:
+
+        def kill_once_some_chunks_finished(p):
+            if not killed and p.solved >= 2 * CHUNK:
+                addr, pid = _busy_worker_pid(client)
+                os.kill(pid, signal.SIGKILL)
+                killed.update(addr=addr, pid=pid, solved=p.solved)
+
+        m = build_split("ieee14", "test-edge", samples=SAMPLES, seed=SEED, out=tmp_path / "dask", chunk=CHUNK,
+                        scheduler=cluster.scheduler_address, progress=kill_once_some_chunks_finished)
+        assert killed and killed["solved"] < SAMPLES  # killed mid-build, while it ran a chunk
+        with pytest.raises(ProcessLookupError):
+            os.kill(killed["pid"], 0)  # that process is gone
+    assert _hashes(m) == _hashes(serial)
