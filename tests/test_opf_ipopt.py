@@ -68,6 +68,12 @@ def build_casadi_opf(net, pd_mw=None, qd_mvar=None, loadability=False):
     rate = br[:, 5] / base
     lim = np.flatnonzero(rate > 0).tolist()
     s_from, s_to = flow_sq(yf, f)[lim], flow_sq(yt, t)[lim]
+    # angle-difference limits of in-service branches; -360 / 360 degrees: none (network format)
+    on = br[:, 10] > 0
+    ang = np.flatnonzero(on & ((br[:, 11] > -360) | (br[:, 12] < 360)))
+    amin = np.where(br[ang, 11] > -360, np.deg2rad(br[ang, 11]), -np.inf)
+    amax = np.where(br[ang, 12] < 360, np.deg2rad(br[ang, 12]), np.inf)
+    dva = va[f[ang].tolist()] - va[t[ang].tolist()] if ang.size else sx(0, 1)
     p_mw = pg * base
     cost = casadi.sum1(gc[:, 4] * p_mw**2 + gc[:, 5] * p_mw + gc[:, 6])
     ref = np.flatnonzero(bus[:, 1] == 3)
@@ -80,11 +86,11 @@ def build_casadi_opf(net, pd_mw=None, qd_mvar=None, loadability=False):
     if loadability:
         x, cost = casadi.vertcat(x, lam), -lam
         lbx, ubx, x0 = np.r_[lbx, -np.inf], np.r_[ubx, np.inf], np.r_[x0, 0.0]
-    return {"nlp": {"x": x, "f": cost, "g": casadi.vertcat(pbal, qbal, s_from, s_to)},
-            "lbx": lbx, "ubx": ubx, "x0": x0, "lim": np.array(lim, int), "rate": rate,
-            "lbg": np.r_[np.zeros(2 * nb), np.full(2 * len(lim), -np.inf)],
-            "ubg": np.r_[np.zeros(2 * nb), np.tile(rate[lim] ** 2, 2)], "nb": nb, "ng": ng, "base": base,
-            "ref": ref}
+    return {"nlp": {"x": x, "f": cost, "g": casadi.vertcat(pbal, qbal, s_from, s_to, dva)},
+            "lbx": lbx, "ubx": ubx, "x0": x0, "lim": np.array(lim, int), "rate": rate, "ang": ang,
+            "lbg": np.r_[np.zeros(2 * nb), np.full(2 * len(lim), -np.inf), amin],
+            "ubg": np.r_[np.zeros(2 * nb), np.tile(rate[lim] ** 2, 2), amax], "nb": nb, "ng": ng,
+            "base": base, "ref": ref}
 
 
 def ipopt_solve(model, tol=1e-9):
@@ -103,7 +109,8 @@ def ipopt_solve(model, tol=1e-9):
             "iterations": int(stats["iter_count"])}, seconds
 
 
-CASES = ["ieee14", "ieee30", "ieee57", "ieee118", "ieee300", "demo"]
+# the -limits variants carry angle-difference limits that bind (ieee30-limits, ieee300-limits)
+CASES = ["ieee14", "ieee30", "ieee57", "ieee118", "ieee300", "demo", "ieee30-limits", "ieee300-limits"]
 
 
 @pytest.fixture(scope="module")
@@ -138,12 +145,15 @@ def test_lagrangian_gradient_vanishes_at_our_solution(name, ipopt_results):
     df = np.asarray(jac_f(x)).ravel()
     jg, gval = (np.asarray(v) for v in jac_g(x))
     s_from = np.sqrt(np.maximum(gval.ravel()[2 * nb:2 * nb + lim.size], 1e-12))
-    s_to = np.sqrt(np.maximum(gval.ravel()[2 * nb + lim.size:], 1e-12))
+    s_to = np.sqrt(np.maximum(gval.ravel()[2 * nb + lim.size:2 * nb + 2 * lim.size], 1e-12))
     m = res.multipliers
     # our multipliers converted to casadi's constraint forms: balance rows per p.u. ($/h),
     # squared flow rows: mu_sq = mu_MVA * base / (2 |S|) (d|S|^2 = 2|S| d|S|)
+    # angle rows in rad: mu_rad = mu_deg * 180 / pi
+    ang = model["ang"]
     y = np.r_[res.lmp_per_mwh * base, res.lmq_per_mvarh * base,
-              m["rate_from"][lim] * base / (2 * s_from), m["rate_to"][lim] * base / (2 * s_to)]
+              m["rate_from"][lim] * base / (2 * s_from), m["rate_to"][lim] * base / (2 * s_to),
+              (m["angmax"][ang] - m["angmin"][ang]) * 180 / np.pi]
     bound = np.r_[np.zeros(nb), m["vmax"] - m["vmin"], (m["pmax"] - m["pmin"]) * base,
                   (m["qmax"] - m["qmin"]) * base]
     grad = df + jg.T @ y + bound
@@ -154,6 +164,7 @@ def test_lagrangian_gradient_vanishes_at_our_solution(name, ipopt_results):
     # primal feasibility on casadi's own constraint functions
     assert np.abs(gval.ravel()[:2 * nb]).max() <= 1e-6
     assert np.all(gval.ravel()[2 * nb:] <= model["ubg"][2 * nb:] + 1e-6)
+    assert np.all(gval.ravel()[2 * nb:] >= model["lbg"][2 * nb:] - 1e-6)
 
 
 @pytest.mark.parametrize("name", ["ieee14", "ieee30", "demo"])

@@ -130,6 +130,16 @@ class ACModel:
         full[self.fixed_mask] = self.const[self.fixed_mask]
         return full[self.free]
 
+    def own_point(self) -> np.ndarray:
+        """Second start: the network's own bus voltages (``vm_pu`` clipped to the voltage
+        limits, ``va_deg``), generator outputs as in :meth:`start_point`."""
+        nb = self.nb
+        full = self.full(self.start_point())
+        full[:nb] = np.deg2rad(self.net.va_deg)
+        full[nb:2 * nb] = np.clip(self.net.vm_pu, self.full_lower[nb:2 * nb], self.full_upper[nb:2 * nb])
+        full[self.fixed_mask] = self.const[self.fixed_mask]
+        return full[self.free]
+
     def set_loads(self, pd_mw: np.ndarray, qd_mvar: np.ndarray,
                   dir_pd_mw: np.ndarray | None = None, dir_qd_mvar: np.ndarray | None = None) -> None:
         """Loads per load element [MW], [MVAr], shape (n_load,); direction for loadability."""

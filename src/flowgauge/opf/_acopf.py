@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import time
+from dataclasses import replace
 
 import numpy as np
 
@@ -44,7 +45,9 @@ class ACOPF:
 
     ``ACOPF(net, settings).solve(pd_mw, qd_mvar, start)``: loads shape (n_load,) [MW], [MVAr]
     (None: the network's own); ``start``: a previous :class:`OPFResult` to start from (warm
-    start) or None (start at mid-range values). Returns an :class:`OPFResult`; a loading the
+    start) or None (start at mid-range values; if that run stops without converging, a second
+    run starts from the network's own voltages with the iterations left of ``max_iter``, and
+    ``iterations`` counts both). Returns an :class:`OPFResult`; a loading the
     network cannot carry gives status "infeasible" or "iteration_limit", never an exception.
     """
 
@@ -62,6 +65,14 @@ class ACOPF:
         x0 = model.start_point() if start is None else start_vector(model, start)
         t0 = time.perf_counter()
         out = interior_point(model, x0, st)
+        iterations = out.iterations
+        if start is None and out.status != "converged" and iterations < st.max_iter:
+            # a mid-range flat start can be far from any balanced point (near-zero impedance
+            # tapped branches carry enormous flows there): run once more from the network's
+            # own voltages with the iterations left; a run that converges from the first
+            # start is never repeated
+            out = interior_point(model, model.own_point(), replace(st, max_iter=st.max_iter - iterations))
+            iterations += out.iterations
         seconds = time.perf_counter() - t0
         rep = point_report(model, out.x, st.binding_tol)
         base = model.base
@@ -71,7 +82,7 @@ class ACOPF:
             status=out.status, message=STATUS_MESSAGES[out.status], objective=out.f / cs,
             pg_mw=rep.pg_mw, qg_mvar=rep.qg_mvar, vm_pu=rep.vm_pu, va_deg=rep.va_deg,
             lmp_per_mwh=lam[:model.nb] / base, lmq_per_mvarh=lam[model.nb:] / base,
-            multipliers=multipliers_of(model, out), iterations=out.iterations, seconds=seconds,
+            multipliers=multipliers_of(model, out), iterations=iterations, seconds=seconds,
             max_p_mismatch_mw=rep.max_p_mismatch_mw, max_q_mismatch_mvar=rep.max_q_mismatch_mvar,
             max_limit_violation=rep.max_limit_violation, complementarity=out.complementarity,
             dual_infeasibility=out.gradient, binding=rep.binding, signature=rep.signature,
