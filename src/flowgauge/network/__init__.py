@@ -9,12 +9,21 @@ from ..errors import InputError
 from ._json import network_from_dict, network_to_dict, read_network_json, write_network_json
 from ._model import BUS_PQ, BUS_PV, BUS_REF, Network
 from ._ppc import to_ppc, to_ppc_for_pandapower
+from ._state import (EDGE_FEATURES, ISLAND_WITHOUT_GENERATION, ISLANDING, NODE_FEATURES, REASONS,
+                     REFERENCE_WITHOUT_GENERATION, GraphView, Rejection, SingleOutages, StateProblem,
+                     binding_in_state, check_state, check_states, group_states, intact_state,
+                     network_in_state, sample_graph, single_outages, state_problem)
 
 __all__ = [
     "Network", "BUS_PQ", "BUS_PV", "BUS_REF",
     "load_network", "bundled_names", "network_from_dict", "network_to_dict",
     "read_network_json", "write_network_json", "synthetic", "read_cdf", "read_matpower", "write_matpower",
     "to_ppc", "to_ppc_for_pandapower",
+    # per-sample network state (docs/topology.md)
+    "intact_state", "check_state", "check_states", "state_problem", "network_in_state", "single_outages",
+    "group_states", "binding_in_state", "sample_graph", "GraphView", "SingleOutages", "Rejection",
+    "StateProblem", "EDGE_FEATURES", "NODE_FEATURES", "REASONS", "ISLANDING", "ISLAND_WITHOUT_GENERATION",
+    "REFERENCE_WITHOUT_GENERATION",
 ]
 
 DATA_DIR = Path(__file__).parent / "data"
