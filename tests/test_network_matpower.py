@@ -160,6 +160,17 @@ def test_bad_case_names_file_and_line(tmp_path, edit, line, match):
     assert err.value.where == f"{p}:{line}"
 
 
+def test_zero_angle_limits_mean_no_limit(tmp_path):
+    # MATPOWER's case format: an ANGMIN/ANGMAX of 0 leaves the angle difference unconstrained
+    # (only non-zero values inside +/-360 constrain); from memory of MATPOWER's documentation of
+    # the branch columns. A non-zero limit is kept.
+    text = GOOD.replace("0\t0\t1\t-360\t360;", "0\t0\t1\t0\t0;")
+    net = read_matpower(_bad(tmp_path, text))
+    assert (net.angmin_deg[0], net.angmax_deg[0]) == (-360.0, 360.0)
+    net = read_matpower(_bad(tmp_path, GOOD.replace("0\t0\t1\t-360\t360;", "0\t0\t1\t-30\t0;")))
+    assert (net.angmin_deg[0], net.angmax_deg[0]) == (-30.0, 360.0)
+
+
 def test_bad_case_via_cli_exit_2(tmp_path, capsys):
     p = _bad(tmp_path, GOOD.replace("0.01\t0.1", "0.01\tx0.1"))
     rc = main(["powerflow", str(p)])

@@ -18,7 +18,8 @@ Mapping (docs/network-format.md, "MATPOWER case import"):
   quadratic stand-in would move the optimum, so no silent conversion is made. Reactive-power
   cost rows (rows ``ng+1 .. 2 ng``) are accepted only when they are all zero.
 - branches: all rows, in file order, with their in-service flag; ``RATE_A = 0`` means no
-  thermal limit; ``TAP = 0`` means a line (ratio 1.0); angle limits default to +/-360 degrees.
+  thermal limit; ``TAP = 0`` means a line (ratio 1.0); an angle-difference limit of 0, or beyond
+  +/-360 degrees, means no limit (as in MATPOWER), stored as -360 / 360; absent columns likewise.
 - the solution columns some files carry (bus columns 14-17, generator 22-25, branch 14-21) are
   ignored; ``mpc.bus_name`` is kept in the provenance as ``bus_names``; other fields
   (``gentype``, ``genfuel``, ...) are ignored.
@@ -310,8 +311,12 @@ def network_from_case(case: MatpowerCase, name: str | None = None) -> Network:
     has_load = (bus[:, 2] != 0) | (bus[:, 3] != 0)
     nload = int(has_load.sum())
     ng, nl = g.shape[0], br.shape[0]
+    # MATPOWER treats an angle-difference limit of 0 as no limit (only non-zero values inside
+    # (-360, 360) constrain; common practice of the case format), as does a value beyond +/-360.
     angmin = br[:, 11] if br.shape[1] > 12 else np.full(nl, -360.0)
     angmax = br[:, 12] if br.shape[1] > 12 else np.full(nl, 360.0)
+    angmin = np.where((angmin == 0) | (angmin <= -360), -360.0, angmin)
+    angmax = np.where((angmax == 0) | (angmax >= 360), 360.0, angmax)
     provenance: dict[str, Any] = {"source": f"MATPOWER case file {Path(path).name}",
                                   "imported_by": "flowgauge read_matpower"}
     if (~on).any():
