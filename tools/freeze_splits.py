@@ -1,9 +1,18 @@
-"""Build the frozen splits in splits/<network>/<split>/ (resumable; finished splits are skipped).
+"""Build the frozen splits in splits/<network>/<split>/ (resumable; finished splits are skipped)
+and write each split's recipe to recipes/<network>/<split>.json.
 
     python tools/freeze_splits.py [--networks demo ieee14 ...] [--workers 2] [--commit]
         [--limit ieee300:train=400 --reason "..."]
+    python tools/freeze_splits.py --networks activsg200 pegase1354 activsg2000 pegase2869 --workers 2
 
-With --commit each finished split is committed alone (its three files only).
+With --commit each finished split is committed alone (its three files and its recipe).
+
+The large public systems (LARGE) get test splits of a few MB each (their counts in
+LARGE_COUNTS: a sample of the 2,000-bus system takes about 60 kB) and a `test-year` split where
+hourly area loads ship with the case. Their training split is built here because the test
+splits are built beside it (regime labels, unseen-regime draws) and the baselines are fitted on
+it, but only its recipe is committed: `splits/<large network>/train/` is in .gitignore, and
+users rebuild it with `flowgauge splits rebuild <network>/train`.
 """
 
 from __future__ import annotations
@@ -14,7 +23,7 @@ import sys
 import time
 from pathlib import Path
 
-from flowgauge.splits import build_split, splits_root, verify_split
+from flowgauge.splits import build_split, recipe_from_split, recipes_root, splits_root, verify_split, write_recipe
 
 NETWORKS = ["demo", "ieee14", "ieee30", "ieee57", "ieee118", "ieee300",
             "ieee14-limits", "ieee30-limits", "ieee57-limits", "ieee118-limits"]
@@ -24,20 +33,46 @@ SPLITS = ["train", "test-id", "test-ood", "test-edge", "train-local"]
 SEEDS = {"train": 1001, "test-id": 2002, "test-ood": 3003, "test-edge": 4004, "train-local": 5005}
 COUNTS = {"test-id": 500, "test-ood": 500, "test-edge": 200, "train": 2000, "train-local": 2000}
 LARGE_TRAIN = {"ieee118": 1000, "ieee300": 1000}
+# The large public systems: which splits, how many samples (committed test splits stay a few MB;
+# the training split's data is not committed, only its recipe).
+LARGE = ["activsg200", "pegase1354", "activsg2000", "pegase2869"]
+LARGE_COUNTS = {
+    "activsg200": {"train": 1000, "test-id": 300, "test-ood": 300, "test-edge": 300, "test-year": 300},
+    "pegase1354": {"train": 200, "test-id": 100, "test-ood": 100, "test-edge": 100},
+    "activsg2000": {"train": 100, "test-id": 100, "test-ood": 100, "test-edge": 100, "test-year": 100},
+    "pegase2869": {"train": 100, "test-id": 60, "test-ood": 60, "test-edge": 60},
+}
+SEEDS["test-year"] = 6006
 # test-ood keeps only regimes unseen in train for a third of its samples: allow more draws per slot
 MAX_ATTEMPTS = {"test-ood": 80}
 FILES = ("inputs.parquet", "references.parquet", "manifest.json")
 
 
+def splits_of(network: str) -> list[str]:
+    """The frozen splits of a network, train first."""
+    if network in LARGE_COUNTS:
+        return list(LARGE_COUNTS[network])
+    return list(SPLITS)
+
+
+def committed_data(network: str, split: str) -> bool:
+    """Whether the split's data is committed (else only its recipe)."""
+    return not (network in LARGE_COUNTS and split == "train")
+
+
 def planned(network: str, split: str) -> int:
+    if network in LARGE_COUNTS:
+        return LARGE_COUNTS[network][split]
     if split in ("train", "train-local") and network in LARGE_TRAIN:
         return LARGE_TRAIN[network]
     return COUNTS[split]
 
 
-def commit(folder: Path, message: str) -> None:
+def commit(folder: Path, message: str, recipe: Path | None = None, data: bool = True) -> None:
     repo = Path(__file__).resolve().parents[1]
-    paths = [str(folder / f) for f in FILES]
+    paths = [str(folder / f) for f in FILES] if data else []
+    if recipe is not None:
+        paths.append(str(recipe))
     for attempt in range(30):  # another engineer's commit may hold the index lock
         add = subprocess.run(["git", "add", "--", *paths], cwd=repo, capture_output=True, text=True)
         if add.returncode == 0:
@@ -57,7 +92,7 @@ def commit(folder: Path, message: str) -> None:
 def main(argv: list[str] | None = None) -> int:
     ap = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
     ap.add_argument("--networks", nargs="+", default=NETWORKS)
-    ap.add_argument("--splits", nargs="+", default=SPLITS)
+    ap.add_argument("--splits", nargs="+", default=None, help="default: every split of each network")
     ap.add_argument("--workers", type=int, default=1)
     ap.add_argument("--chunk", type=int, default=10)
     ap.add_argument("--commit", action="store_true", help="commit each finished split")
@@ -71,7 +106,9 @@ def main(argv: list[str] | None = None) -> int:
         limits[tuple(key.split(":"))] = int(n)
     root = splits_root()
     for network in args.networks:
-        for split in args.splits:
+        for split in (args.splits or splits_of(network)):
+            if split not in splits_of(network):
+                continue
             out = root / network / split
             if (out / "manifest.json").exists():
                 r = verify_split(out)
@@ -90,8 +127,12 @@ def main(argv: list[str] | None = None) -> int:
             dt = time.perf_counter() - t0
             rej = sum(m["rejected"].values())
             print(f"{network}/{split}: done, {n} samples, {rej} rejected, {dt:.0f} s, {m['split_hash']}", flush=True)
+            recipe = recipes_root() / network / f"{split}.json"
+            write_recipe(recipe_from_split(out), recipe)
             if args.commit:
-                commit(out, f"Frozen split {network}/{split}: {n} samples, {rej} rejected draws (seed {SEEDS[split]})")
+                what = "Frozen split" if committed_data(network, split) else "Recipe of the split"
+                commit(out, f"{what} {network}/{split}: {n} samples, {rej} rejected draws (seed {SEEDS[split]})",
+                       recipe=recipe, data=committed_data(network, split))
     return 0
 
 

@@ -16,8 +16,8 @@ A **plain draw** picks a direction in load space and a distance along it:
   extent drawn uniformly in ``fraction``, which covers light loadings, the interior and the
   approach to the boundary (the last half percent is left to the edge split). The lower end of
   ``fraction`` is fitted per network (:meth:`Spanning.fitted`): the lightest share, among
-  0.05, 0.1, 0.2, 0.3 and 0.4, at which the base load pattern has a feasible AC optimal power
-  flow. Some networks cannot carry light loadings: their line charging raises voltages beyond
+  0.05, 0.1, 0.2, 0.3 and 0.4 (then 0.5 to 0.8 where none of those works), at which the base
+  load pattern has a feasible AC optimal power flow. Some networks cannot carry light loadings: their line charging raises voltages beyond
   what the generators' reactive ranges can absorb.
 
 A **steered draw** moves toward rarely seen binding-limit regimes. When the design is fitted to
@@ -55,6 +55,10 @@ FAMILY_OF_LIMIT = {"vmin": "voltage", "vmax": "voltage", "pmin": "active_power",
 
 _PILOTS: dict = {}  # fitted fraction and pilot by (network hash, settings), within one process
 LIGHT_SHARES = (0.05, 0.1, 0.2, 0.3, 0.4)
+# Tried only when none of LIGHT_SHARES is feasible: networks whose generators' summed minimum
+# outputs are a large share of the base load (the 200-bus ACTIVSg system: 86 %) cannot carry
+# light loadings at all, since the optimal power flow does not switch units off.
+HEAVY_SHARES = (0.5, 0.6, 0.7, 0.8)
 # Networks above LARGE_NETWORK_BUSES solve a smaller pilot: there nearly every loading has a
 # binding-limit regime of its own, so the pilot's inverse-frequency weights are flat and the
 # pilot serves only as a set of feasible starting directions; 200 draws would cost hours.
@@ -156,13 +160,19 @@ class Spanning:
         base = np.where(net.pd_mw > 0, net.pd_mw, 0.0)
         w = _base_weights(net) if base.sum() <= 0 else np.where(base > 0, base, _base_weights(net) * 1e-3)
         pf = np.clip(np.cos(np.arctan2(np.abs(net.qd_mvar), np.maximum(np.abs(net.pd_mw), 1e-9))), *self.power_factor)
-        for share in (x for x in LIGHT_SHARES if x >= floor):
+        for share in (x for x in LIGHT_SHARES + HEAVY_SHARES if x >= floor):
             loading = self._along(net, w, pf, share, tools, "fit")
             if not isinstance(loading, str) and tools.solve(loading.pd_mw, loading.qd_mvar).status == "converged":
                 return float(share)
-        raise InputError("the base load pattern is not feasible at any light share of its extent "
-                         f"({', '.join(map(str, LIGHT_SHARES))}); cannot place the spanning design",
+        raise InputError("the base load pattern is not feasible at any share of its extent "
+                         f"({', '.join(map(str, LIGHT_SHARES + HEAVY_SHARES))}); cannot place the spanning design",
                          where=f"network {net.name!r}")
+
+    def shares_tried(self) -> list[float]:
+        """The shares :meth:`lightest_share` tried: LIGHT_SHARES, and HEAVY_SHARES up to the
+        fitted lower end when none of LIGHT_SHARES was feasible."""
+        low = self.fraction[0]
+        return list(LIGHT_SHARES) + [x for x in HEAVY_SHARES if x <= low and low > LIGHT_SHARES[-1]]
 
     def _pilot(self, net: Network, tools) -> dict:
         ws, pfs, fracs, regimes = [], [], [], []
@@ -203,7 +213,7 @@ class Spanning:
                 "fraction": list(self.fraction), "steer_share": self.steer_share,
                 "steered_slots": "odd", "pilot_draws": self.pilot_draws, "pilot_seed": self.pilot_seed,
                 "step_sigma": self.step_sigma, "pf_step": self.pf_step, "fraction_step": self.fraction_step,
-                "start_share": self.start_share, "light_shares_tried": list(LIGHT_SHARES), **self.pilot_summary()}
+                "start_share": self.start_share, "light_shares_tried": self.shares_tried(), **self.pilot_summary()}
 
     def draw(self, net: Network, rng, solver=None, slot: int = 0) -> Loading | str:
         if self.steer_share > 0 and slot % 2 == 1 and self.pilot is not None:
