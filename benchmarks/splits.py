@@ -18,6 +18,16 @@ reference; ``ratio`` = spanning / level-local regimes at each n.
 
 Quick mode: few samples on demo, ieee14, ieee30, ieee57, ieee118; the regime curves up to 500
 samples. Full mode adds ieee300, more samples, regime curves up to 2,000 samples.
+
+Executors (``--executors``, written to ``benchmarks/results/splits_executors.json`` instead):
+build throughput of one split on each executor, the median of several timed builds each: in
+this process (serial), the local process pool with 2 workers, and a Dask ``LocalCluster`` of 1
+and of 2 worker processes (one thread each) reached through ``--scheduler``. Builds run in
+rounds, one per executor, interleaved, so that the machine's changing load touches all alike;
+one round builds one seed everywhere and records whether the identity hashes agree. The
+spanning design's pilot is fitted once before timing; the Dask clusters are started and warmed
+up (a small untimed build: imports, solver set-up on each worker) before the rounds, since a
+long build pays that once; the local pool starts afresh in every build, as it does in use.
 """
 
 from __future__ import annotations
@@ -147,11 +157,80 @@ def _load_times(repeats: int = 5) -> dict | None:
             "ratio_to_pandas": statistics.median(ours) / statistics.median(ref)}
 
 
+EXECUTORS = {"quick": {"network": "ieee14", "split": "train", "samples": 40, "chunk": 4, "repeats": 3},
+             "full": {"network": "ieee118", "split": "train", "samples": 40, "chunk": 4, "repeats": 5}}
+
+
+def _timed_build(tmp: Path, name: str, plan: dict, seed: int, **kw) -> tuple[float, str]:
+    t0 = time.perf_counter()
+    m = build_split(plan["network"], plan["split"], samples=plan["samples"], seed=seed, chunk=plan["chunk"],
+                    out=tmp / f"{name}-{seed}" / plan["split"], **kw)
+    return plan["samples"] / (time.perf_counter() - t0), m["identity_hash"]
+
+
+def _executor_rates(plan: dict, tmp: Path) -> dict:
+    """Rounds of one build per executor, interleaved so that a change in the machine's load
+    touches every executor alike; round r builds seed 100 + r everywhere, so the identity
+    hashes of one round must agree."""
+    from contextlib import ExitStack
+
+    from dask.distributed import LocalCluster
+    _pilot_seconds(plan["network"])  # fit the design once, outside the timings
+    runs = {"serial": {"workers": 1}, "local_pool_2_workers": {"workers": 2}}
+    with ExitStack() as stack:
+        for n in (1, 2):
+            cluster = stack.enter_context(LocalCluster(n_workers=n, threads_per_worker=1, processes=True,
+                                                       host="127.0.0.1", dashboard_address=None))
+            name = f"dask_{n}_worker{'s' if n > 1 else ''}"
+            runs[name] = {"scheduler": cluster.scheduler_address}
+            # warm-up: imports and the solver's set-up on every worker, paid once by a long build
+            _timed_build(tmp, f"{name}-warm", dict(plan, samples=2 * n * plan["chunk"]), 99, **runs[name])
+        rates = {name: [] for name in runs}
+        same = []
+        for r in range(plan["repeats"]):
+            idents = set()
+            for name, kw in runs.items():
+                rate, ident = _timed_build(tmp, name, plan, 100 + r, **kw)
+                rates[name].append(rate)
+                idents.add(ident)
+            same.append(len(idents) == 1)
+            print(f"round {r}: " + ", ".join(f"{k} {v[-1]:.2f}/s" for k, v in rates.items())
+                  + f"; identity hashes agree: {same[-1]}", flush=True)
+    med = {k: statistics.median(v) for k, v in rates.items()}
+    return {**plan, "samples_per_s": rates, "median_samples_per_s": med,
+            "ratio_to_serial": {k: v / med["serial"] for k, v in med.items()},
+            "identity_hashes_agree_per_round": same}
+
+
+def _main_executors(args) -> int:
+    plan = EXECUTORS["quick" if args.quick else "full"]
+    out_path = args.out or str(Path(__file__).parent / "results" / "splits_executors.json")
+    t_start = time.perf_counter()
+    load_before = os.getloadavg()[0]
+    with tempfile.TemporaryDirectory(prefix="fg-bench-executors-") as tmpdir:
+        rates = _executor_rates(plan, Path(tmpdir))
+    result = {"benchmark": "splits-executors", "flowgauge_version": __version__, "quick": args.quick,
+              "cpu_count": os.cpu_count(), "python": platform.python_version(), "numpy": np.__version__,
+              "load_average_1min_start": load_before, "load_average_1min_end": os.getloadavg()[0],
+              "wall_seconds": time.perf_counter() - t_start, "executors": rates,
+              "note": "samples/s kept (rejected draws' time included), median of the interleaved rounds; Dask "
+                      "clusters warmed up before timing, the local pool started in every build. The machine is "
+                      "shared with other work (see the load averages): compare ratios from the same run."}
+    atomic_write_bytes(out_path, canonical_json(result, indent=1))
+    print(f"wrote {out_path} in {result['wall_seconds']:.0f} s", flush=True)
+    return 0
+
+
 def main(argv: list[str] | None = None) -> int:
     ap = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
     ap.add_argument("--quick", action="store_true")
-    ap.add_argument("--out", default=str(Path(__file__).parent / "results" / "splits.json"))
+    ap.add_argument("--executors", action="store_true",
+                    help="only the executor comparison (serial, local pool, Dask 1 and 2 workers)")
+    ap.add_argument("--out", default=None)
     args = ap.parse_args(argv)
+    if args.executors:
+        return _main_executors(args)
+    args.out = args.out or str(Path(__file__).parent / "results" / "splits.json")
     plan = QUICK if args.quick else FULL
     t_start = time.perf_counter()
     load_before = os.getloadavg()[0]

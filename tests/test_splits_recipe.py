@@ -237,3 +237,17 @@ def test_a_tampered_frozen_split_fails_its_recipe(tmp_path):
     _set_digest(doc, "references", 42)
     with pytest.raises(IntegrityError, match=r"sample 42 \(references.parquet\)"):
         check_split_against_recipe(doc, copy)
+
+
+def test_verify_checks_a_split_against_its_recipe(tmp_path, capsys):
+    folder = str(REPO / "splits" / "ieee14" / "test-edge")
+    assert main(["splits", "verify", folder, "--recipe", "ieee14/test-edge"]) == 0
+    assert "ok  matches the recipe" in capsys.readouterr().out
+    doc = json.loads((recipes_root() / "ieee14" / "test-edge.json").read_text())
+    _set_digest(doc, "inputs", 3)
+    bad = tmp_path / "bad.json"
+    bad.write_text(json.dumps(doc))
+    assert main(["splits", "verify", folder, "--recipe", str(bad)]) == 3
+    assert "Error: sample 3 (inputs.parquet): the checked inputs of sample 3 differ" in capsys.readouterr().err
+    assert main(["splits", "verify", "--recipe", str(bad)]) == 2
+    assert "--recipe: checks one split against a recipe: give one PATH" in capsys.readouterr().err

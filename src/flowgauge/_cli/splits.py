@@ -122,16 +122,23 @@ def rebuild(recipe_file, out, workers, scheduler, network, train, quiet, fresh) 
 
 @splits.command(short_help="Recompute every hash of frozen splits.")
 @click.argument("paths", nargs=-1, type=click.Path())
-def verify(paths) -> None:
+@click.option("--recipe", "recipe_file", default=None,
+              help="Also check the split (one PATH) against this recipe (a file or NETWORK/SPLIT), sample by sample.")
+def verify(paths, recipe_file) -> None:
     """Recompute every hash of the splits at PATHS (default: every frozen split); exit 3 on a difference."""
-    from ..splits import list_splits, resolve_split, splits_root, verify_split
+    from ..splits import check_split_against_recipe, list_splits, resolve_split, splits_root, verify_split
     folders = [resolve_split(p) for p in paths] if paths else list_splits()
     if not folders:
         raise InputError("no frozen splits found", where=str(splits_root()))
+    if recipe_file is not None and len(folders) != 1:
+        raise InputError(f"checks one split against a recipe: give one PATH, got {len(folders)}", where="--recipe")
     for folder in folders:
         r = verify_split(folder)
         extra = "" if r.references_present else " (references withheld; manifest commits to their hash)"
         console.print(f"ok  {r.network}/{r.split}  {r.samples} samples  {r.split_hash[:16]}  {folder}{extra}")
+    if recipe_file is not None:
+        ident = check_split_against_recipe(recipe_file, folders[0])
+        console.print(f"ok  matches the recipe {shown(recipe_file, 200)}: every sample, identity_hash {ident[:16]}")
 
 
 def _fmt(x: float, pct: bool = False) -> str:

@@ -229,6 +229,7 @@ class Expectation:
         self.hex = sd["digest_hex"]
         self.digests = {key: _unpack(sd[key], self.hex) for key in ("inputs", "references")}
         self.files = {"inputs": "inputs.parquet", "references": "references.parquet"}
+        self.made = "rebuilt"  # what the checked content is, in messages
 
     def check_plan(self, plan: dict[str, Any]) -> None:
         """Before anything is solved: network, split, design and its fitted parameters, seed,
@@ -261,8 +262,9 @@ class Expectation:
                 want = self.digests[key][sample]
                 if got[key][i] != want:
                     raise IntegrityError(
-                        f"the rebuilt {key} of sample {sample} differ from the recipe's (sample digest "
-                        f"{want}, rebuilt {got[key][i]}); the first differing sample of chunk {start}..{stop - 1}",
+                        f"the {self.made} {key} of sample {sample} differ from the recipe's (sample digest "
+                        f"{want}, {self.made} {got[key][i]}); the first differing sample of samples "
+                        f"{start}..{stop - 1}",
                         where=f"sample {sample} ({self.files[key]})")
 
     def check_manifest(self, manifest: dict[str, Any], folder: Path | None = None) -> None:
@@ -278,7 +280,7 @@ class Expectation:
             diff = _first_difference(e[key], have[key], f"/expected/{key}")
             if diff is not None:
                 pointer, a, b = diff
-                raise IntegrityError(f"recipe {_short(a)}, rebuilt {_short(b)}{kept}",
+                raise IntegrityError(f"recipe {_short(a)}, {self.made} {_short(b)}{kept}",
                                      where=f"{self.source}: {pointer}")
 
 
@@ -341,12 +343,13 @@ def check_split_against_recipe(recipe: str | Path | dict[str, Any], folder: str 
     on a difference."""
     from ._load import resolve_split
     from ._verify import verify_split
-    doc = read_recipe(resolve_recipe(recipe)) if not isinstance(recipe, dict) else _check_recipe(recipe, "recipe")
-    source = "recipe" if isinstance(recipe, dict) else str(recipe)
+    source = "recipe" if isinstance(recipe, dict) else str(resolve_recipe(recipe))
+    doc = _check_recipe(recipe, source) if isinstance(recipe, dict) else read_recipe(source)
     folder = resolve_split(folder)
     verify_split(folder)
     m = json.loads((folder / MANIFEST_FILE).read_text(encoding="utf-8"))
     exp = Expectation(doc, source)
+    exp.made = "checked"
     t_ident = None
     if "train" in m and "identity_hash" not in m["train"]:
         from ._load import load_split
