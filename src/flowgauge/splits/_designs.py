@@ -23,12 +23,16 @@ __all__ = ["Loading", "LevelLocal", "Shifted", "Edge", "DESIGNS", "SPLIT_DESIGN"
 @dataclass(frozen=True)
 class Loading:
     """One drawn loading: ``pd_mw``, ``qd_mvar`` shape (n_load,) [MW], [MVAr]; ``margin``
-    (fraction of the maximum loadability left, NaN outside the edge design)."""
+    (fraction of the maximum loadability left, NaN outside the edge design); the sample's state
+    ``branch_in_service`` (n_branch,) and ``gen_in_service`` (n_gen,) bool, None for the
+    network as it is (every design but the single-outage one)."""
 
     pd_mw: np.ndarray
     qd_mvar: np.ndarray
     margin: float = float("nan")
     kind: str = ""  # which branch of a mixed design drew it (prefixes rejection reasons)
+    branch_in_service: np.ndarray | None = None
+    gen_in_service: np.ndarray | None = None
 
 
 def sample_rng(seed: int, slot: int, attempt: int, stream: tuple[int, ...] = ()) -> np.random.Generator:
@@ -236,13 +240,21 @@ def _year():
     return Year()
 
 
+def _single_outage():
+    from ._outage import SingleOutage
+    return SingleOutage()
+
+
 DESIGNS: dict[str, Callable[[], Any]] = {"level-local": LevelLocal, "shifted": Shifted, "edge": Edge,
-                                         "spanning": _spanning, "outside": _outside, "year": _year}
+                                         "spanning": _spanning, "outside": _outside, "year": _year,
+                                         "single-outage": _single_outage}
 # train and test-id span the feasible region (different seeds, so no shared draw); test-ood lies
 # outside what the training design produces; train-local is the narrow design around the base
-# case, kept so that a user can measure the narrow-to-wide generalisation gap.
+# case, kept so that a user can measure the narrow-to-wide generalisation gap. test-n1 and
+# train-n1: training-design loadings with one branch or generator out (their own streams).
 SPLIT_DESIGN = {"train": "spanning", "test-id": "spanning", "test-ood": "outside", "test-edge": "edge",
-                "test-year": "year", "train-local": "level-local"}
+                "test-year": "year", "train-local": "level-local", "test-n1": "single-outage",
+                "train-n1": "single-outage"}
 
 
 def design_for(split: str, net: Network | None = None, train=None):

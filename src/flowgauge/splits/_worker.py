@@ -1,15 +1,19 @@
 """The work of one chunk of samples, run in a worker process (local or Dask).
 
 Each sample slot tries draws (attempt 0, 1, ...) until one gives a loading whose AC-OPF
-reference is accepted; every rejected draw is counted by reason.
+reference is accepted; every rejected draw is counted by reason. A draw with a state (one
+element out, the single-outage design) is solved on the network of that state
+(:func:`flowgauge.network.network_in_state`), one AC-OPF object per distinct state and process,
+and its binding limits are recorded without the labels of generators out
+(:func:`flowgauge.network.binding_in_state`).
 """
 
 from __future__ import annotations
 
 import io
 import json
-from collections import Counter
-from dataclasses import dataclass
+from collections import Counter, OrderedDict
+from dataclasses import dataclass, replace
 from pathlib import Path
 from typing import Any
 
@@ -42,6 +46,11 @@ class Job:
     stream: tuple = ()  # the split's stream of draws (_designs.draw_stream)
 
 
+# AC-OPF objects of states kept per process (least recently used dropped): a state's object
+# is built once and reused for every later sample of that state.
+STATE_SOLVERS = 64
+
+
 class _Tools:
     """The AC-OPF solver and the maximum loadability of one network, built once per process."""
 
@@ -50,9 +59,36 @@ class _Tools:
         self.net = net
         self.settings = OPFSettings()
         self.solver = ACOPF(net, self.settings)
+        self._states: OrderedDict = OrderedDict()
 
     def solve(self, pd_mw: np.ndarray, qd_mvar: np.ndarray):
         return self.solver.solve(pd_mw, qd_mvar, start=None)
+
+    def state_solver(self, branch_in_service: np.ndarray, gen_in_service: np.ndarray):
+        """The AC-OPF of the network in this state, cached by the state's bytes."""
+        from ..network import network_in_state
+        from ..opf import ACOPF
+        br = np.ascontiguousarray(branch_in_service, bool)
+        gen = np.ascontiguousarray(gen_in_service, bool)
+        key = br.tobytes() + b"|" + gen.tobytes()
+        if key in self._states:
+            self._states.move_to_end(key)
+            return self._states[key]
+        solver = ACOPF(network_in_state(self.net, br, gen), self.settings)
+        self._states[key] = solver
+        if len(self._states) > STATE_SOLVERS:
+            self._states.popitem(last=False)
+        return solver
+
+    def solve_in_state(self, pd_mw: np.ndarray, qd_mvar: np.ndarray, branch_in_service: np.ndarray,
+                       gen_in_service: np.ndarray):
+        """The AC-OPF of the loading on the network in this state; binding labels (and the
+        signature) without those of generators out."""
+        from ..network import binding_in_state
+        from ..opf._result import binding_signature
+        res = self.state_solver(branch_in_service, gen_in_service).solve(pd_mw, qd_mvar, start=None)
+        binding = binding_in_state(res.binding, self.net, gen_in_service)
+        return replace(res, binding=binding, signature=binding_signature(binding))
 
     def max_loadability(self, pd_mw, qd_mvar, dir_pd_mw, dir_qd_mvar, *, allow_negative: bool = False) -> float | str:
         """``lam`` of the maximum loadability, or a rejection reason; ``lam <= 0`` is rejected
@@ -99,7 +135,11 @@ def _solve_slot(job: Job, tools, slot: int, rejected: Counter) -> tuple[Loading,
         if isinstance(loading, str):
             rejected[f"{loading}"] += 1
             continue
-        res = tools.solve(loading.pd_mw, loading.qd_mvar)
+        if loading.branch_in_service is not None:
+            res = tools.solve_in_state(loading.pd_mw, loading.qd_mvar, loading.branch_in_service,
+                                       loading.gen_in_service)
+        else:
+            res = tools.solve(loading.pd_mw, loading.qd_mvar)
         reason = reject_reason(res, job.acceptance)
         if reason is None and hasattr(job.design, "check"):
             reason = job.design.check(loading, res)
@@ -119,6 +159,14 @@ def solve_chunk(job: Job, start: int, stop: int) -> dict[str, np.ndarray]:
     loads, res = [r[0] for r in rows], [r[1] for r in rows]
     def stack(attr):
         return np.stack([np.asarray(getattr(r, attr), float) for r in res])
+    state = {}
+    if getattr(job.design, "has_states", False):  # per-sample flags only for designs with states
+        from ..network import intact_state
+        br0, gen0 = intact_state(job.net)
+        state = {"branch_in_service": np.stack([br0 if l.branch_in_service is None else
+                                                np.asarray(l.branch_in_service, bool) for l in loads]),
+                 "gen_in_service": np.stack([gen0 if l.gen_in_service is None else
+                                             np.asarray(l.gen_in_service, bool) for l in loads])}
     return {
         "slot": np.arange(start, stop, dtype=np.int64),
         "pd_mw": np.stack([l.pd_mw for l in loads]), "qd_mvar": np.stack([l.qd_mvar for l in loads]),
@@ -132,6 +180,7 @@ def solve_chunk(job: Job, start: int, stop: int) -> dict[str, np.ndarray]:
         "binding": np.array([BINDING_SEP.join(r.binding) for r in res], dtype=str),
         "signature": np.array([str(r.signature) for r in res], dtype=str),
         "rejected": np.array(json.dumps(dict(sorted(rejected.items())))),
+        **state,
     }
 
 
