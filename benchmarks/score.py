@@ -39,7 +39,9 @@ run happens in a fresh child process (``--scale-child``), so nothing is cached f
 run; the parent samples the resident memory of the child and of every process under it with
 psutil every 20 ms (peak of the sum: the process tree's peak) and the child reports its own
 ``ru_maxrss`` and the largest one among its worker processes. Wall time is that of
-``score_arrays`` alone (inputs built before the clock starts); samples per second and, when
+``score_arrays`` alone (inputs built before the clock starts), and its CPU time (user + system,
+of the child and its finished workers: what a shared machine's load does not inflate, so CPU
+time / 2 estimates the 2-worker wall time on an idle 2-core machine); samples per second and, when
 fewer than 10,000 samples ran, the time for 10,000 at the same rate (samples are independent
 and solved in fixed chunks, so time grows linearly in the count). Target: 10,000 samples in
 at most 60 s with 2 workers and at most 4 GB peak.
@@ -251,13 +253,18 @@ def scale_child(network: str, samples: int, seed: int, profile: str, workers: in
     """One scale run in this process; prints one JSON line (run by :func:`scale_run`)."""
     net = load_network(network)
     pd, qd, pg, vm, ref = inputs(net, samples, seed)
-    t0 = time.perf_counter()
+    def cpu():  # user + system time of this process and of its finished children (the workers)
+        a, b = resource.getrusage(resource.RUSAGE_SELF), resource.getrusage(resource.RUSAGE_CHILDREN)
+        return a.ru_utime + a.ru_stime + b.ru_utime + b.ru_stime
+
+    c0, t0 = cpu(), time.perf_counter()
     agg, table = score_arrays(net, sample_id=np.arange(samples), pd_mw=pd, qd_mvar=qd, reference_cost_per_h=ref,
                               pg_mw=pg, vm_pu=vm, profile=profile, workers=workers)
-    seconds = time.perf_counter() - t0
+    seconds, cpu_seconds = time.perf_counter() - t0, cpu() - c0
     kib = 1024  # ru_maxrss is in KiB on Linux
     print(json.dumps({
         "seconds": seconds,
+        "cpu_seconds": cpu_seconds,
         "self_maxrss_bytes": resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * kib,
         "largest_worker_maxrss_bytes": resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss * kib,
         "restoration_failure_rate": agg["restoration_failure_rate"],
@@ -307,6 +314,7 @@ def time_scale(samples: int, repeat: int, seed: int, extra: tuple[int, ...] = ()
             row = {"profile": profile, "workers": workers, "seconds": [r["seconds"] for r in runs],
                    "seconds_median": med, "samples_per_second": rate,
                    "seconds_for_10000_samples": SCALE_TARGET["samples"] / rate,
+                   "cpu_seconds_per_sample_median": statistics.median(r["cpu_seconds"] for r in runs) / samples,
                    "tree_peak_rss_bytes_max": max(r["tree_peak_rss_bytes"] for r in runs),
                    "processes_at_peak": runs[0]["processes_at_peak"],
                    "self_maxrss_bytes_max": max(r["self_maxrss_bytes"] for r in runs),
@@ -322,6 +330,8 @@ def time_scale(samples: int, repeat: int, seed: int, extra: tuple[int, ...] = ()
     for more in extra:
         r = scale_run(SCALE_NETWORK, more, seed, REACTIVE_LIMITS_PROFILE.name, 2)
         curve.append((more, r["seconds"], r["tree_peak_rss_bytes"]))
+        out.setdefault("target_configuration_cpu_seconds_per_sample", []).append(
+            {"samples": more, "cpu_seconds_per_sample": r["cpu_seconds"] / more})
         print("scale curve", more, json.dumps(r), flush=True)
     out["target_configuration_by_samples"] = [{"samples": c, "seconds": t, "tree_peak_rss_bytes": m}
                                               for c, t, m in curve]
@@ -332,6 +342,9 @@ def time_scale(samples: int, repeat: int, seed: int, extra: tuple[int, ...] = ()
             "tree_peak_rss_bytes": float(np.polyval(np.polyfit(c, [x[2] for x in curve], 1),
                                                     SCALE_TARGET["samples"])),
             "note": "linear fit over the sample counts above; not measured at 10,000"}
+    # on an idle machine the 2 workers would split the process tree's CPU time between 2 cores
+    out["idle_machine_estimate_seconds_for_10000_samples_2_workers"] = (
+        rl["cpu_seconds_per_sample_median"] * SCALE_TARGET["samples"] / 2)
     out["target"] = dict(SCALE_TARGET)
     out["seconds_for_10000_samples_to_target_ratio"] = rl["seconds_for_10000_samples"] / SCALE_TARGET["seconds_at_most"]
     peak = out.get("extrapolated_to_10000_samples", {}).get("tree_peak_rss_bytes", rl["tree_peak_rss_bytes_max"])

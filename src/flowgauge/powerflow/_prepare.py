@@ -17,6 +17,10 @@ from ..physics import Admittance, JacobianPattern, admittance, dc_matrices
 __all__ = ["Prepared", "prepared", "stack_input", "bus_injection_setpoints"]
 
 
+# Jacobian patterns kept per network besides its own (least recently used dropped first)
+KEPT_PATTERNS = 8
+
+
 @dataclass(eq=False)
 class Prepared:
     """Data of one network that do not depend on the sample.
@@ -48,10 +52,20 @@ class Prepared:
     _dc_lu: object = None
 
     def pattern(self, pv: np.ndarray, pq: np.ndarray) -> JacobianPattern:
+        """The Jacobian pattern of these bus types. The network's own pattern is kept; of the
+        others (reactive-limit rounds, ``_switching``) the :data:`KEPT_PATTERNS` used last,
+        with the LU data cached on them (a process scoring many chunks meets new ones in every
+        chunk). A pattern built again is the same, so what is kept changes no result."""
         key = (pv.tobytes(), pq.tobytes())
-        if key not in self._patterns:
-            self._patterns[key] = JacobianPattern(self.adm.ybus, pv, pq)
-        return self._patterns[key]
+        pat = self._patterns.pop(key, None)
+        if pat is None:
+            pat = JacobianPattern(self.adm.ybus, pv, pq)
+        self._patterns[key] = pat  # most recently used last
+        own = (self.pv.tobytes(), self.pq.tobytes())
+        others = [k for k in self._patterns if k != own]
+        for k in others[:max(0, len(others) - KEPT_PATTERNS)]:
+            del self._patterns[k]
+        return pat
 
     @property
     def nonref(self) -> np.ndarray:

@@ -34,6 +34,7 @@ __all__ = ["CAUSES", "GRADED_CAUSES", "CHUNK_SAMPLES", "Restoration", "restore",
            "causes_of"]
 
 CHUNK_SAMPLES = 64
+JUDGE_ROWS = 1024  # samples judged at a time (bounds the temporaries of the limit checks)
 SCHEDULER_TIMEOUT_S = 10  # seconds to wait for a Dask scheduler to answer
 
 # The one table of restoration failure causes: name -> what it means. Several may apply.
@@ -203,11 +204,42 @@ def restore(net: Network, *, pd_mw, qd_mvar, pg_mw, vm_pu, profile: ScoringProfi
             v[~conv] = np.nan
     iterations = got["iterations"].astype(np.int64).reshape(n)
     if profile.grading is None:
-        return _judge(net, conv, iterations, state, profile)
-    unsettled = got.get("unsettled", np.zeros(0, bool))
-    at_limit = got.get("at_q_limit", np.zeros((0, net.n_gen), np.int8))
-    return _judge_graded(net, conv, unsettled.reshape(n), iterations, state, at_limit.reshape(n, net.n_gen),
-                         profile)
+        return _in_blocks(net, conv, state, lambda b, st: _judge(net, conv[b], iterations[b], st, profile))
+    unsettled = got.get("unsettled", np.zeros(0, bool)).reshape(n)
+    at_limit = got.get("at_q_limit", np.zeros((0, net.n_gen), np.int8)).reshape(n, net.n_gen)
+    return _in_blocks(net, conv, state, lambda b, st: _judge_graded(net, conv[b], unsettled[b], iterations[b], st,
+                                                                    at_limit[b], profile))
+
+
+def _cost(net: Network, conv: np.ndarray, ok: dict) -> np.ndarray:
+    """Cost of the restored dispatch (S,) [$/h], NaN where not converged, from the converged rows
+    ``ok`` all at once (a matrix product: its rounding may depend on how many rows it gets)."""
+    cost = np.full(conv.shape[0], np.nan)
+    if net.has_costs:
+        cost[conv] = generator_cost_per_h(ok["pg_mw"], cost_c2=net.cost_c2, cost_c1=net.cost_c1, cost_c0=net.cost_c0)
+    return cost
+
+
+def _in_blocks(net: Network, conv: np.ndarray, state: dict, judge) -> Restoration:
+    """``judge(rows, state rows)`` on blocks of at most :data:`JUDGE_ROWS` samples, joined: the
+    limit checks are elementwise and reduce row by row, so the blocks bound the temporaries
+    without changing a value; the cost is computed once over all rows, as without blocks."""
+    n = conv.shape[0]
+    if n <= JUDGE_ROWS:
+        return judge(slice(0, n), state)
+    parts = [judge(b, {k: v[b] for k, v in state.items()}) for b in _chunks(n, JUDGE_ROWS)]
+
+    def joined(get):
+        first = get(parts[0])
+        if first is None:
+            return None
+        if isinstance(first, dict):
+            return {k: np.concatenate([get(p)[k] for p in parts]) for k in first}
+        return np.concatenate([get(p) for p in parts])
+
+    names = ("converged", "iterations", "violations", "causes", "failed", "switched_generators", "ratios", "severity")
+    return Restoration(**state, cost_per_h=_cost(net, conv, _converged_rows(state, conv)),
+                       **{k: joined(lambda p, k=k: getattr(p, k)) for k in names})
 
 
 def _converged_rows(state: dict, conv: np.ndarray) -> dict:
@@ -250,9 +282,7 @@ def _judge(net: Network, conv: np.ndarray, iterations: np.ndarray, state: dict, 
         causes[cause] = conv & (np.nan_to_num(violations[fam], nan=0.0) > tol[key])
     causes = {c: causes[c] for c in CAUSES}
     failed = np.logical_or.reduce(list(causes.values()))
-    cost = np.full(n, np.nan)
-    if net.has_costs:
-        cost[conv] = generator_cost_per_h(ok["pg_mw"], cost_c2=net.cost_c2, cost_c1=net.cost_c1, cost_c0=net.cost_c0)
+    cost = _cost(net, conv, ok)
     return Restoration(converged=conv, iterations=iterations, cost_per_h=cost, violations=violations,
                        causes=causes, failed=failed, **state)
 
