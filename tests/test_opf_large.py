@@ -71,9 +71,11 @@ def test_large_optimum_matches_ipopt(name, solved):
     # reference: Ipopt (casadi wheel) on the independent formulation of tests/test_opf_ipopt.py
     assert ref["success"] and res.converged
     assert res.objective == pytest.approx(ref["f"], rel=1e-6)
-    # voltages of a large case: the optimum is flat in some magnitudes (generators at reactive
-    # limits on both sides of a short branch), so 1e-3 p.u. rather than the small cases' 1e-4
-    np.testing.assert_allclose(res.vm_pu, ref["vm_pu"], atol=1e-3)
+    # voltages: measured differences up to 1.6e-4 p.u. (activsg200, pegase1354; 4.5e-5 on
+    # activsg2000) while the objectives agree to 1e-7 and reactive outputs differ by up to
+    # 2.6 MVAr at the same cost: the optimum is nearly flat in those magnitudes, so 5e-4 p.u.
+    # here rather than the small cases' 1e-4
+    np.testing.assert_allclose(res.vm_pu, ref["vm_pu"], atol=5e-4)
 
 
 def test_activsg200_optimum_matches_pypower(solved):
