@@ -12,7 +12,10 @@ from rich.table import Table
 from ..errors import InputError
 from ._common import console, err_console, shown
 
-SPLIT_CHOICES = ["train", "test-id", "test-ood", "test-edge"]
+
+def _split_names() -> list[str]:
+    from ..splits._manifest import SPLIT_NAMES  # every split a design exists for
+    return list(SPLIT_NAMES)
 
 
 @click.group()
@@ -49,7 +52,7 @@ class _Progress:
 
 @splits.command(short_help="Build a split of a network (resumable).")
 @click.argument("network")
-@click.option("--split", "split", required=True, type=click.Choice(SPLIT_CHOICES), help="Which split design to draw.")
+@click.option("--split", "split", required=True, type=click.Choice(_split_names()), help="Which split design to draw.")
 @click.option("--samples", type=click.IntRange(min=1), required=True, help="Number of samples kept.")
 @click.option("--seed", type=click.IntRange(min=0), required=True, help="Seed of every draw.")
 @click.option("--out", "out", type=click.Path(file_okay=False), required=True, help="Folder to create.")
@@ -71,7 +74,8 @@ def build(network, split, samples, seed, out, workers, scheduler, chunk, notes, 
     finally:
         progress.stop()
     rej = sum(m["rejected"].values())
-    console.print(f"{out}: {m['samples']} samples, {rej} draws rejected, split_hash {m['split_hash']}")
+    console.print(f"{shown(out, 200)}: {m['samples']} samples, {rej} draws rejected, split_hash {m['split_hash']}, "
+                  f"identity_hash {m['identity_hash']}")
 
 
 @splits.command(short_help="Write the recipe that rebuilds a split.")

@@ -15,7 +15,7 @@ import numpy as np
 
 from .. import __version__
 from .._io import atomic_write_bytes, canonical_json, clip_text, hash_arrays
-from ..errors import InputError
+from ..errors import InputError, IntegrityError
 from ..network import Network, bundled_names, load_network, write_network_json
 from ._coverage import coverage
 from ._designs import SEED_RULE, SPLIT_DESIGN, design_for, draw_stream
@@ -126,7 +126,9 @@ def _file_entry(path: str, table, with_solution: bool) -> dict[str, Any]:
 def _tables(sid: np.ndarray, data: dict, train_signatures) -> tuple:
     """The inputs and references tables of samples ``sid`` (a chunk or the whole split), and
     per sample whether its regime occurs in the training split (None without one)."""
-    t_in = inputs_table(sid, data["pd_mw"], data["qd_mvar"], kind=data.get("kind"))
+    # the per-sample state columns, when the design gives each sample one (single-outage designs)
+    t_in = inputs_table(sid, data["pd_mw"], data["qd_mvar"], kind=data.get("kind"),
+                        branch_in_service=data.get("branch_in_service"), gen_in_service=data.get("gen_in_service"))
     ref_cols = dict(data)
     ref_cols["binding"] = [tuple(b.split(BINDING_SEP)) if b else () for b in data["binding"].tolist()]
     seen = None
@@ -242,15 +244,27 @@ def build_split(network: str | Path | Network, split: str, *, samples: int, seed
     if progress:
         progress(BuildProgress(solved, n_rej, samples, resumed))
     todo = [(job, a, b) for (a, b) in ranges if (a, b) not in done]
+    differs: tuple[int, IntegrityError] | None = None  # the earliest chunk found to differ
     try:
         for (_, a, b), result in run_tasks(solve_chunk, todo, workers=workers, scheduler=scheduler):
-            check(a, b, result)  # before it is kept: a differing chunk is never resumed from
-            write_chunk(_chunk_path(chunks_dir, a, b), result)
-            done[(a, b)] = result
-            solved += b - a
-            n_rej += sum(json.loads(str(result["rejected"])).values())
-            if progress:
-                progress(BuildProgress(solved, n_rej, samples, resumed))
+            try:
+                check(a, b, result)  # before it is kept: a differing chunk is never resumed from
+            except IntegrityError as exc:
+                if differs is None or a < differs[0]:
+                    differs = (a, exc)
+            else:
+                write_chunk(_chunk_path(chunks_dir, a, b), result)
+                done[(a, b)] = result
+                solved += b - a
+                n_rej += sum(json.loads(str(result["rejected"])).values())
+                if progress:
+                    progress(BuildProgress(solved, n_rej, samples, resumed))
+            # chunks finish out of order on several workers: wait for the ones before the
+            # differing chunk, so that the error names the first differing sample of the split
+            if differs is not None and all(r in done for r in ranges if r[0] < differs[0]):
+                raise differs[1]
+        if differs is not None:
+            raise differs[1]
     except BaseException:
         if not done:  # nothing to resume from: leave no trace
             shutil.rmtree(part, ignore_errors=True)
