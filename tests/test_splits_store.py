@@ -194,7 +194,7 @@ def test_load_split_errors_name_what_was_expected(tmp_path, monkeypatch):
     monkeypatch.setenv("FLOWGAUGE_SPLITS", str(tmp_path))
     with pytest.raises(InputError, match=r"no frozen split ieee14/test-id"):
         load_split("ieee14", "test-id")
-    with pytest.raises(InputError, match=r"expected one of train, test-id, test-ood, test-edge, train-local, got 'val'"):
+    with pytest.raises(InputError, match=r"expected one of train, test-id, test-ood, test-edge, .*train-local.*, got 'val'"):
         load_split("ieee14", "val")
     with pytest.raises(InputError, match=r"no split with this split_hash"):
         load_split("0" * 64)

@@ -26,7 +26,7 @@ __all__ = ["FORMAT_NAME", "FORMAT_VERSION", "SPLIT_NAMES", "SCHEMA_PATH", "netwo
 
 FORMAT_NAME = "flowgauge-split-manifest"
 FORMAT_VERSION = 1
-SPLIT_NAMES = ("train", "test-id", "test-ood", "test-edge", "train-local")
+SPLIT_NAMES = ("train", "test-id", "test-ood", "test-edge", "test-year", "train-local")
 SCHEMA_PATH = Path(__file__).resolve().parent.parent / "schema" / "manifest.schema.json"
 
 
