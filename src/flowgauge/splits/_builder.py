@@ -20,7 +20,8 @@ from ..network import Network, bundled_names, load_network, write_network_json
 from ._coverage import coverage
 from ._designs import SEED_RULE, SPLIT_DESIGN, design_for, draw_stream
 from ._executors import run_tasks
-from ._manifest import FORMAT_NAME, FORMAT_VERSION, SPLIT_NAMES, network_hash, seal_manifest, write_manifest
+from ._manifest import (FORMAT_NAME, FORMAT_VERSION, SPLIT_NAMES, STATE_FORMAT_VERSION, network_hash, seal_manifest,
+                        write_manifest)
 from ._store import (BINDING_SEP, INPUTS_FILE, MANIFEST_FILE, REFERENCES_FILE, inputs_table,
                      references_table, solution_hash, table_columns, write_table)
 from ._worker import ACCEPTANCE, MAX_ATTEMPTS, Job, read_chunk, solve_chunk, solver_settings, write_chunk
@@ -158,6 +159,10 @@ def _finish(out: Path, part: Path, net: Network, job: Job, split: str, samples: 
     sid = data["slot"]
     if not np.array_equal(sid, np.arange(samples)):
         raise RuntimeError("chunks do not cover the samples exactly")  # a bug, not a user error
+    has_states = "branch_in_service" in data
+    if has_states:  # every kept state is one the network allows (the worker solved on it)
+        from ..network import check_states
+        check_states(net, data["branch_in_service"], data["gen_in_service"], sid)
     t_in, t_ref, seen, binding = _tables(sid, data, _train_signatures(train))
     write_table(t_in, stage / INPUTS_FILE)
     write_table(t_ref, stage / REFERENCES_FILE)
@@ -166,7 +171,8 @@ def _finish(out: Path, part: Path, net: Network, job: Job, split: str, samples: 
         write_network_json(net, stage / "network.json")
         network_info["file"] = "network.json"
     manifest = seal_manifest({
-        "format": FORMAT_NAME, "format_version": FORMAT_VERSION, "network": network_info,
+        "format": FORMAT_NAME, "format_version": STATE_FORMAT_VERSION if has_states else FORMAT_VERSION,
+        "network": network_info,
         "split": split, "design": {"name": job.design.name, "parameters": job.design.parameters(net)},
         "seed": job.seed, "seed_rule": SEED_RULE, "samples": samples,
         "elements": {"bus_id": net.bus_id.tolist(), "gen_id": net.gen_id.tolist(),

@@ -20,13 +20,17 @@ from .._io import atomic_write_bytes, canonical_json, parse_json, read_input_byt
 from ..errors import InputError
 from ..network import Network, network_to_dict
 
-__all__ = ["FORMAT_NAME", "FORMAT_VERSION", "SPLIT_NAMES", "SCHEMA_PATH", "network_hash",
-           "compute_split_hash", "seal_manifest", "write_manifest", "read_manifest", "check_schema",
-           "identity_view", "compute_identity_hash", "NOT_IN_IDENTITY", "MEASURED_COLUMNS"]
+__all__ = ["FORMAT_NAME", "FORMAT_VERSION", "STATE_FORMAT_VERSION", "FORMAT_VERSIONS", "SPLIT_NAMES",
+           "SCHEMA_PATH", "network_hash", "compute_split_hash", "seal_manifest", "write_manifest", "read_manifest",
+           "check_schema", "identity_view", "compute_identity_hash", "NOT_IN_IDENTITY", "MEASURED_COLUMNS"]
 
 FORMAT_NAME = "flowgauge-split-manifest"
 FORMAT_VERSION = 1
-SPLIT_NAMES = ("train", "test-id", "test-ood", "test-edge", "test-year", "train-local")
+# Splits whose inputs carry per-sample states (branch_in_service, gen_in_service columns) are
+# written as version 2; every other split keeps version 1, byte for byte as before.
+STATE_FORMAT_VERSION = 2
+FORMAT_VERSIONS = (FORMAT_VERSION, STATE_FORMAT_VERSION)
+SPLIT_NAMES = ("train", "test-id", "test-ood", "test-edge", "test-year", "test-n1", "train-local", "train-n1")
 SCHEMA_PATH = Path(__file__).resolve().parent.parent / "schema" / "manifest.schema.json"
 
 

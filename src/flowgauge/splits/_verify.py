@@ -66,7 +66,7 @@ def _identity(m: dict) -> str | None:
     return compute_identity_hash(m)
 
 
-def _check_file(folder: Path, entry: dict, manifest: dict) -> None:
+def _check_file(folder: Path, entry: dict, manifest: dict) -> dict[str, np.ndarray]:
     path = folder / entry["path"]
     if not path.exists():
         raise IntegrityError("missing: the manifest lists this file", where=str(path))
@@ -98,6 +98,27 @@ def _check_file(folder: Path, entry: dict, manifest: dict) -> None:
         if name in cols and cols[name].shape != (n, len(el[ids])):
             raise IntegrityError(f"column {name} has shape {cols[name].shape}, the manifest says "
                                  f"({n}, {len(el[ids])})", where=str(path))
+    return cols
+
+
+def _check_states(folder: Path, m: dict, cols: dict, net) -> None:
+    """Version 2 splits carry per-sample states, version 1 splits none; every state is one the
+    network allows (:func:`flowgauge.network.check_states`: an InputError names sample and element)."""
+    from ..network import check_states
+    from ._manifest import STATE_FORMAT_VERSION
+    from ._store import STATE_COLUMNS
+    have = [c for c in STATE_COLUMNS if c in cols]
+    path = str(folder / m["files"]["inputs"]["path"])
+    if bool(have) != (m["format_version"] >= STATE_FORMAT_VERSION):
+        what = "carry" if have else "carry no"
+        raise IntegrityError(f"the inputs {what} per-sample states (columns {', '.join(STATE_COLUMNS)}), the "
+                             f"manifest's format_version is {m['format_version']} (states: version "
+                             f"{STATE_FORMAT_VERSION}, none: version 1)", where=path)
+    if have:
+        if len(have) != len(STATE_COLUMNS):
+            raise IntegrityError(f"column {have[0]} without {[c for c in STATE_COLUMNS if c not in have][0]}",
+                                 where=path)
+        check_states(net, cols["branch_in_service"], cols["gen_in_service"], cols["sample_id"])
 
 
 def verify_split(path: str | Path) -> VerifyReport:
@@ -109,7 +130,7 @@ def verify_split(path: str | Path) -> VerifyReport:
     folder = Path(path)
     m = _manifest(folder)
     files = [MANIFEST_FILE]
-    _check_file(folder, m["files"]["inputs"], m)
+    in_cols = _check_file(folder, m["files"]["inputs"], m)
     files.append(m["files"]["inputs"]["path"])
     ref_entry = m["files"]["references"]
     present = (folder / ref_entry["path"]).exists()
@@ -121,6 +142,7 @@ def verify_split(path: str | Path) -> VerifyReport:
     for key in ("bus_id", "gen_id", "load_id", "branch_id"):
         if getattr(net, key).tolist() != el[key]:
             raise IntegrityError(f"elements/{key} differs from the network's order", where=str(folder / MANIFEST_FILE))
+    _check_states(folder, m, in_cols, net)
     return VerifyReport(path=folder, split_hash=m["split_hash"], network=m["network"]["name"], split=m["split"],
                         samples=m["samples"], files=tuple(files), references_present=present,
                         identity_hash=_identity(m))
