@@ -140,3 +140,51 @@ def test_linear_outputs_stay_within_the_limits_far_outside_training():
     assert np.all(pred.vm_pu >= net.vmin_pu) and np.all(pred.vm_pu <= net.vmax_pu)
     assert np.all(pred.pg_mw >= net.pmin_mw) and np.all(pred.pg_mw <= net.pmax_mw)
     assert np.all(np.abs(pred.va_deg) <= 180.0)
+
+
+# ---- splits with network states (tests/test_scoring_state.py: ieee14, rows 0-3 branch 0 out,
+# rows 4-7 generator 1 out, rows 8-11 intact) ------------------------------------------------
+
+def test_dc_opf_follows_each_samples_state_as_pypower_rundcopf_without_the_element():
+    import warnings
+
+    from pypower.api import ppoption, rundcopf
+
+    from flowgauge.network import to_ppc
+    from flowgauge.splits import load_split
+    from test_scoring_state import state_split_path
+    sp = load_split(state_split_path())
+    pred = predict_baseline("dc-opf", sp)
+    net = sp.network
+    for row, table, pos in ((0, "branch", 0), (4, "generator", 1), (8, None, None)):
+        ppc = to_ppc(net, sp.pd_mw[row], sp.qd_mvar[row])
+        keep = np.arange(net.n_gen)
+        if table == "branch":
+            ppc["branch"] = np.delete(ppc["branch"], pos, axis=0)
+        elif table == "generator":
+            ppc["gen"] = np.delete(ppc["gen"], pos, axis=0)
+            ppc["gencost"] = np.delete(ppc["gencost"], pos, axis=0)
+            keep = np.delete(keep, pos)
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            ref = rundcopf(ppc, ppoption(VERBOSE=0, OUT_ALL=0))
+        assert ref["success"]
+        # reference library: PYPOWER rundcopf on the case with the element's row deleted;
+        # both are interior-point solutions: measured differences up to 2e-6 MW, checked to 1e-5
+        np.testing.assert_allclose(pred.pg_mw[row][keep], ref["gen"][:, 1], atol=1e-5)
+        if table == "generator":  # hand: a generator out is dispatched at 0
+            assert pred.pg_mw[row][pos] == 0.0
+
+
+@pytest.mark.parametrize("name", ["nearest", "linear"])
+def test_learned_baselines_ignore_the_state(name):
+    from flowgauge.baselines import linear, nearest
+    from flowgauge.splits import load_split
+    from test_scoring_state import state_split_path
+    sp = load_split(state_split_path())
+    train = split_path("ieee14", "train")
+    got = predict_baseline(name, sp, train=train)
+    # the same loads without any state give the same predictions: the state is not an input
+    want = {"nearest": nearest, "linear": linear}[name](load_split(train), sp.pd_mw, sp.qd_mvar)
+    np.testing.assert_array_equal(got.pg_mw, want.pg_mw)
+    np.testing.assert_array_equal(got.vm_pu, want.vm_pu)

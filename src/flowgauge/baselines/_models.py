@@ -52,31 +52,56 @@ def _bounded_dispatch(net: Network, load_mw: float) -> np.ndarray:
     return lo + share * (hi - lo)
 
 
-def dc_opf(net: Network, pd_mw: np.ndarray, sample_id: np.ndarray, progress=None) -> Prediction:
+def _unlimited(net: Network) -> Network:
+    """``net`` without branch and angle limits (the DC-OPF's economic-dispatch fallback)."""
+    return net.replace(rate_mva=np.full(net.n_branch, np.nan), angmin_deg=np.full(net.n_branch, -360.0),
+                       angmax_deg=np.full(net.n_branch, 360.0))
+
+
+def dc_opf(net: Network, pd_mw: np.ndarray, sample_id: np.ndarray, progress=None, *,
+           branch_in_service=None, gen_in_service=None) -> Prediction:
     """The DC-OPF dispatch of each sample, with the network's voltage setpoints (within limits);
     where the DC-OPF is infeasible, the same without branch and angle limits (an economic
     dispatch), and where that is infeasible too, :func:`_bounded_dispatch`. ``progress(done,
-    total)`` is called after each sample, if given."""
+    total)`` is called after each sample, if given.
+
+    ``branch_in_service`` (S, n_branch) and ``gen_in_service`` (S, n_gen) bool, optional: each
+    sample's network state; the samples are grouped by state and each is solved on its state
+    network (:func:`flowgauge.network.network_in_state`: lines out carry nothing, generators
+    out are held at 0). The voltage setpoints are the intact network's."""
     from ..opf import solve_dcopf
 
     pd = np.asarray(pd_mw, float)
-    pg = np.empty((pd.shape[0], net.n_gen))
-    # Where the DC model has no feasible dispatch (a loading the AC network carries can break the
-    # DC model's branch or angle limits), the baseline drops the branch limits: an economic
-    # dispatch of the same generators and costs.
-    unlimited = net.replace(rate_mva=np.full(net.n_branch, np.nan), angmin_deg=np.full(net.n_branch, -360.0),
-                            angmax_deg=np.full(net.n_branch, 360.0))
-    for i in range(pd.shape[0]):  # one linear programme per sample
-        res = solve_dcopf(net, pd_mw=pd[i])
-        if str(res.status) != "converged":
-            res = solve_dcopf(unlimited, pd_mw=pd[i])
-        out = np.asarray(res.pg_mw, float)
-        if str(res.status) != "converged" or not np.all(np.isfinite(out)):
-            out = _bounded_dispatch(net, float(pd[i].sum()))
-        pg[i] = out
-        if progress is not None:
-            progress(i + 1, pd.shape[0])
-    vm = np.broadcast_to(network_voltage_setpoints(net), (pd.shape[0], net.n_bus)).copy()
+    n = pd.shape[0]
+    pg = np.empty((n, net.n_gen))
+    if branch_in_service is None:
+        groups = [(net, np.arange(n))]
+    else:
+        from ..network import group_states, network_in_state
+        ub, ug, group = group_states(branch_in_service, gen_in_service)
+        sid = np.asarray(sample_id)
+        groups = []
+        for k in range(ub.shape[0]):
+            rows = np.flatnonzero(group == k)
+            groups.append((network_in_state(net, ub[k], ug[k], sample=sid[rows[0]].item()), rows))
+    done = 0
+    for state_net, rows in groups:
+        # Where the DC model has no feasible dispatch (a loading the AC network carries can break
+        # the DC model's branch or angle limits), the baseline drops the branch limits: an
+        # economic dispatch of the same generators and costs.
+        unlimited = _unlimited(state_net)
+        for i in rows.tolist():  # one linear programme per sample
+            res = solve_dcopf(state_net, pd_mw=pd[i])
+            if str(res.status) != "converged":
+                res = solve_dcopf(unlimited, pd_mw=pd[i])
+            out = np.asarray(res.pg_mw, float)
+            if str(res.status) != "converged" or not np.all(np.isfinite(out)):
+                out = _bounded_dispatch(state_net, float(pd[i].sum()))
+            pg[i] = out
+            done += 1
+            if progress is not None:
+                progress(done, n)
+    vm = np.broadcast_to(network_voltage_setpoints(net), (n, net.n_bus)).copy()
     return Prediction(pg_mw=pg, vm_pu=vm, va_deg=None, qg_mvar=None)
 
 

@@ -27,7 +27,8 @@ class Prepared:
 
     ``pv``/``pq``: solver bus types (a PV bus without a generator counts as PQ, as in the
     IEEE Common Data Format convention); ``island`` (n_bus,): island label of each bus;
-    ``ref_gen`` (n_ref,): the generator taking the balance at each reference bus (-1: none).
+    ``ref_gen`` (n_ref,): the generator taking the balance at each reference bus (-1: none): the
+    first in service there (four limits not all 0), else the first.
     ``injection`` (n_bus, n_gen + n_load): [cg, -cl] / base_mva, maps [generation, load]
     [MW] to the bus injection [p.u.]; ``branch_currents`` (2 n_branch, n_bus): [yf; yt];
     ``gens_fixed_q`` (n_gen,): generators at PQ buses, whose reactive output is a setpoint.
@@ -108,9 +109,15 @@ def _prepare(net: Network) -> Prepared:
     on = np.asarray(net.in_service, bool)
     graph = sp.csr_matrix((np.ones(int(on.sum())), (net.f_idx[on], net.t_idx[on])), shape=(nb, nb))
     _, island = csgraph.connected_components(graph, directed=False)
-    # first generator (in network order) at each reference bus
+    # the first generator (in network order) at each reference bus that is in service: one out of
+    # service (network_in_state: its four limits 0) takes no balance (docs/topology.md); where
+    # every generator at the bus has four zero limits, the first of them
     first = np.full(nb, ng)
     np.minimum.at(first, gbus, np.arange(ng))
+    live = ~((net.pmin_mw == 0) & (net.pmax_mw == 0) & (net.qmin_mvar == 0) & (net.qmax_mvar == 0))
+    first_live = np.full(nb, ng)
+    np.minimum.at(first_live, gbus[live], np.flatnonzero(live))
+    first = np.where(first_live < ng, first_live, first)
     ref_gen = np.where(first[ref] < ng, first[ref], -1)
     bbus, bf, pbusinj, pfinj = dc_matrices(net)
     injection = sp.hstack([adm.cg, -adm.cl]).tocsr() / net.base_mva

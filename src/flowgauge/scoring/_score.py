@@ -19,7 +19,8 @@ from ._metrics import (active_balance_residual_mw, angle_difference_violation_de
 from ._profile import ScoringProfile, get_profile
 from ._grading import element_excess, failure_at_multiples, solved_shares, tolerance_ratios, worst_ratio
 from ._restoration import causes_of, restore
-from ._scorecard import FORMAT_NAME, FORMAT_VERSION, GRADED_FORMAT_VERSION, Scorecard
+from ._scorecard import FORMAT_NAME, FORMAT_VERSION, GRADED_FORMAT_VERSION, STATE_FORMAT_VERSION, Scorecard
+from ._state import StateGroups, per_group, restore_in_states, state_groups
 
 __all__ = ["score", "score_arrays", "RAW_FAMILIES", "RESTORED_FAMILIES", "FAMILY_TOLERANCE"]
 
@@ -216,11 +217,48 @@ def _breakdowns(table: pd.DataFrame, profile, regime_seen_in_train, kind) -> dic
     return out
 
 
-def _header(split, preds, profile: ScoringProfile) -> dict[str, Any]:
+def _plain_group(table: pd.DataFrame, mask: np.ndarray) -> dict:
+    """The aggregates of profiles without grading over the samples in ``mask``: counts, failure
+    rate and causes, gaps (the breakdown by outage kind of such profiles)."""
+    t = table[mask]
+    n = int(mask.sum())
+    causes = [c[len("cause_"):] for c in t.columns if c.startswith("cause_")]
+    return {
+        "samples": n,
+        "restoration_failure_rate": float(t["restoration_failed"].to_numpy(bool).mean()) if n else None,
+        "restoration_failure_causes": {c: float(t[f"cause_{c}"].mean()) if n else None for c in causes},
+        "raw_gap_pct": summary_stats(t["raw_gap_pct"].to_numpy()),
+        "restored_gap_pct": summary_stats(t["restored_gap_pct"].to_numpy()),
+    }
+
+
+def _by_outage(table: pd.DataFrame, profile, kind: np.ndarray) -> dict:
+    """Aggregates per outage kind present (``intact``, ``branch out``, ``generator out``, ...)."""
+    group = _group_aggregates if profile.grading is not None else (lambda t, m, p: _plain_group(t, m))
+    return {name: group(table, kind == name, profile) for name in sorted(set(kind.tolist()))}
+
+
+def _raw_in_states(groups: StateGroups, prof, pd_mw, qd_mvar, pg, vm, va, qg):
+    """Raw cost, raw families and (with grading) raw tolerance ratios, each group of samples on
+    its state network: a generator out is judged against its [0, 0] limits and costs nothing."""
+    def one(n: Network, r: np.ndarray) -> dict:
+        def rows(a):
+            return None if a is None else a[r]
+        out = {"cost": generator_cost_per_h(pg[r], cost_c2=n.cost_c2, cost_c1=n.cost_c1, cost_c0=n.cost_c0),
+               "fams": _raw_metrics(n, pd_mw[r], qd_mvar[r], pg[r], vm[r], rows(va), rows(qg))}
+        if prof.grading is not None:
+            out["ratios"] = _raw_ratios(n, prof.tolerances, pg[r], vm[r], rows(va), rows(qg))
+        return out
+    got = per_group(groups, one)
+    return got["cost"], got["fams"], got.get("ratios")
+
+
+def _header(split, preds, profile: ScoringProfile, states: bool = False) -> dict[str, Any]:
     model = preds.header.get("model") if isinstance(preds.header, dict) else None
+    version = FORMAT_VERSION if profile.grading is None else GRADED_FORMAT_VERSION
     return {
         "format": FORMAT_NAME,
-        "format_version": FORMAT_VERSION if profile.grading is None else GRADED_FORMAT_VERSION,
+        "format_version": STATE_FORMAT_VERSION if states else version,
         "flowgauge_version": __version__,
         "split": {"network": split.network_name, "split": split.name, "split_hash": split.split_hash},
         "predictions_hash": preds.content_hash,
@@ -233,7 +271,7 @@ def score_arrays(net: Network, *, sample_id, pd_mw, qd_mvar, reference_cost_per_
                  qg_mvar=None, inference_ms=None, reference_solve_ms: float | None = None,
                  profile: str | ScoringProfile | None = None, workers: int = 1, scheduler: str | None = None,
                  progress: Callable[[int, int], None] | None = None, regime_seen_in_train=None,
-                 kind=None) -> tuple[dict, pd.DataFrame]:
+                 kind=None, branch_in_service=None, gen_in_service=None) -> tuple[dict, pd.DataFrame]:
     """The scorer's core on arrays already checked and aligned, rows sorted by ``sample_id``.
 
     ``pd_mw``, ``qd_mvar`` (S, n_load) [MW, MVAr]; ``reference_cost_per_h`` (S,) [$/h];
@@ -242,7 +280,11 @@ def score_arrays(net: Network, *, sample_id, pd_mw, qd_mvar, reference_cost_per_
     ``reference_solve_ms``: the reference solver's median time per sample [ms];
     ``regime_seen_in_train`` (S,) bool and ``kind`` (S,) str, optional: with a grading profile,
     the aggregates are also broken down by them (``by_regime_seen_in_train``, ``by_kind``).
-    Returns (aggregates, per-sample table).
+    ``branch_in_service`` (S, n_branch) and ``gen_in_service`` (S, n_gen) bool, optional: each
+    sample's network state (docs/topology.md); every metric, the restoration and every limit
+    check then run on each sample's state network (``_state``), the predicted setpoints of
+    generators out are set to 0 before the restoration, the table gains ``outage`` and the
+    aggregates ``by_outage``. Returns (aggregates, per-sample table).
     """
     if isinstance(workers, bool) or not isinstance(workers, (int, np.integer)) or workers < 1:
         raise InputError(f"The 'workers' parameter of score must be an integer >= 1. Got {workers!r} instead.",
@@ -258,14 +300,25 @@ def score_arrays(net: Network, *, sample_id, pd_mw, qd_mvar, reference_cost_per_
     va, qg = _optional(va_deg), _optional(qg_mvar)
     inference = _optional(inference_ms)
 
-    raw_cost = generator_cost_per_h(pg, cost_c2=net.cost_c2, cost_c1=net.cost_c1, cost_c0=net.cost_c0)
-    fams = _raw_metrics(net, pd_mw, qd_mvar, pg, vm, va, qg)
-    rest = restore(net, pd_mw=pd_mw, qd_mvar=qd_mvar, pg_mw=pg, vm_pu=vm, profile=prof, workers=int(workers),
-                   scheduler=scheduler, progress=progress)
+    groups = None
+    if branch_in_service is not None or gen_in_service is not None:  # checked before anything is computed
+        groups = state_groups(net, branch_in_service, gen_in_service, sid)
+    raw_ratios = None
+    if groups is None:
+        raw_cost = generator_cost_per_h(pg, cost_c2=net.cost_c2, cost_c1=net.cost_c1, cost_c0=net.cost_c0)
+        fams = _raw_metrics(net, pd_mw, qd_mvar, pg, vm, va, qg)
+        rest = restore(net, pd_mw=pd_mw, qd_mvar=qd_mvar, pg_mw=pg, vm_pu=vm, profile=prof, workers=int(workers),
+                       scheduler=scheduler, progress=progress)
+    else:
+        raw_cost, fams, raw_ratios = _raw_in_states(groups, prof, pd_mw, qd_mvar, pg, vm, va, qg)
+        rest = restore_in_states(net, groups, pd_mw=pd_mw, qd_mvar=qd_mvar, pg_mw=pg, vm_pu=vm, profile=prof,
+                                 workers=int(workers), scheduler=scheduler, progress=progress)
     fams.update(rest.violations)
     ratios = None
     if prof.grading is not None:
-        ratios = {"raw": _raw_ratios(net, prof.tolerances, pg, vm, va, qg), "restored": rest.ratios}
+        if raw_ratios is None:
+            raw_ratios = _raw_ratios(net, prof.tolerances, pg, vm, va, qg)
+        ratios = {"raw": raw_ratios, "restored": rest.ratios}
     viol = _violating(fams, dict(prof.tolerances), ratios)
     restored_gap = np.full(sid.size, np.nan)
     conv = rest.converged
@@ -295,6 +348,9 @@ def score_arrays(net: Network, *, sample_id, pd_mw, qd_mvar, reference_cost_per_
         table["solved"] = ~rest.failed & (np.abs(np.nan_to_num(restored_gap, nan=np.inf)) <= limit)
         aggregates.update(_graded_aggregates(table, rest, prof))
         aggregates.update(_breakdowns(table, prof, regime_seen_in_train, kind))
+    if groups is not None:
+        table["outage"] = groups.kind
+        aggregates["by_outage"] = _by_outage(table, prof, groups.kind)
     return aggregates, table
 
 
@@ -306,7 +362,8 @@ def score(predictions, split=None, *, profile: str | ScoringProfile | None = Non
     in the predictions header. ``profile``: a scoring profile or its name (``default``).
     ``workers``: local processes for the restoration power flows; ``scheduler``: the address of
     a Dask scheduler to spread them over instead. ``progress(done, total)`` is called as the
-    restoration power flows finish. The scorecard is the same bytes whatever ``workers`` and
+    restoration power flows finish. A split with per-sample network states is scored on each
+    sample's state network (scorecard format 3, docs/metrics.md). The scorecard is the same bytes whatever ``workers`` and
     ``scheduler``. Bad input raises InputError before anything is computed or written.
     """
     prof = get_profile(profile)
@@ -332,5 +389,16 @@ def score(predictions, split=None, *, profile: str | ScoringProfile | None = Non
         workers=workers, scheduler=scheduler, progress=progress,
         regime_seen_in_train=None if split.references.regime_seen_in_train is None
         else np.asarray(split.references.regime_seen_in_train)[order],
-        kind=None if getattr(split, "kind", None) is None else np.asarray(split.kind)[order])
-    return Scorecard(header=_header(split, preds, prof), aggregates=aggregates, per_sample=table)
+        kind=None if getattr(split, "kind", None) is None else np.asarray(split.kind)[order],
+        **_states_of(split, order))
+    return Scorecard(header=_header(split, preds, prof, states=_states_of(split, order) != {}),
+                     aggregates=aggregates, per_sample=table)
+
+
+def _states_of(split, order: np.ndarray) -> dict:
+    """The split's per-sample states in ``order`` as keyword arguments of :func:`score_arrays`
+    (none for a split whose samples all run on the network as it is)."""
+    br = getattr(split, "branch_in_service", None)
+    if br is None:
+        return {}
+    return {"branch_in_service": np.asarray(br)[order], "gen_in_service": np.asarray(split.gen_in_service)[order]}

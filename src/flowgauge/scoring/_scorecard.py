@@ -14,19 +14,37 @@ import pandas as pd
 from .._io import atomic_write_bytes, canonical_json, sha256_hex
 from ..errors import InputError, IntegrityError
 
-__all__ = ["FORMAT_NAME", "FORMAT_VERSION", "GRADED_FORMAT_VERSION", "FORMAT_VERSIONS", "PER_SAMPLE_JSON_FIELDS",
-           "GRADED_PER_SAMPLE_JSON_FIELDS", "Scorecard", "read_scorecard", "scorecard_hash"]
+__all__ = ["FORMAT_NAME", "FORMAT_VERSION", "GRADED_FORMAT_VERSION", "STATE_FORMAT_VERSION", "FORMAT_VERSIONS",
+           "PER_SAMPLE_JSON_FIELDS", "GRADED_PER_SAMPLE_JSON_FIELDS", "STATE_PER_SAMPLE_JSON_FIELDS", "Scorecard",
+           "read_scorecard", "scorecard_hash", "per_sample_json_fields"]
 
 FORMAT_NAME = "flowgauge-scorecard"
 FORMAT_VERSION = 1
 # Written by profiles with grading: version 1 plus severity, the tolerance curve and the solved
 # share (docs/metrics.md).
 GRADED_FORMAT_VERSION = 2
-FORMAT_VERSIONS = (FORMAT_VERSION, GRADED_FORMAT_VERSION)
+# Written for splits with per-sample network states, whatever the profile: version 1 or 2 (by
+# the profile: with grading, the fields of 2) plus the breakdown by outage kind and each
+# sample's outage kind (docs/metrics.md, "Splits with network states").
+STATE_FORMAT_VERSION = 3
+FORMAT_VERSIONS = (FORMAT_VERSION, GRADED_FORMAT_VERSION, STATE_FORMAT_VERSION)
 # Per-sample columns carried in the JSON scorecard (the ranking's paired bootstrap uses them);
 # the full per-sample table goes to Parquet with ``--per-sample``.
 PER_SAMPLE_JSON_FIELDS = ("sample_id", "restoration_failed", "restored_gap_pct", "raw_gap_pct")
 GRADED_PER_SAMPLE_JSON_FIELDS = PER_SAMPLE_JSON_FIELDS + ("solved", "severity")
+STATE_PER_SAMPLE_JSON_FIELDS = ("outage",)
+
+
+def per_sample_json_fields(header: dict[str, Any]) -> tuple[str, ...]:
+    """The per-sample columns a scorecard with this header carries in its JSON."""
+    version = header.get("format_version")
+    if version == FORMAT_VERSION:
+        return PER_SAMPLE_JSON_FIELDS
+    if version == GRADED_FORMAT_VERSION:
+        return GRADED_PER_SAMPLE_JSON_FIELDS
+    profile = header.get("profile")
+    graded = isinstance(profile, dict) and "grading" in profile
+    return (GRADED_PER_SAMPLE_JSON_FIELDS if graded else PER_SAMPLE_JSON_FIELDS) + STATE_PER_SAMPLE_JSON_FIELDS
 
 
 def scorecard_hash(doc: dict[str, Any]) -> str:
@@ -58,8 +76,7 @@ class Scorecard:
 
     def to_dict(self) -> dict[str, Any]:
         """The scorecard document, with its ``scorecard_hash``."""
-        fields = PER_SAMPLE_JSON_FIELDS if self.header.get("format_version") == FORMAT_VERSION \
-            else GRADED_PER_SAMPLE_JSON_FIELDS
+        fields = per_sample_json_fields(self.header)
         doc = {**self.header, "aggregates": self.aggregates,
                "per_sample": {k: _json_column(self.per_sample[k]) for k in fields}}
         # Round-trip through canonical JSON so the hash covers exactly what is written.
