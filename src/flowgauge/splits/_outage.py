@@ -82,7 +82,8 @@ def load_contingencies(path: str | Path, net: Network) -> ContingencyList:
     t_id = _int_list(doc, "branches", "to_bus_id", where)
     gen = _int_list(doc, "generators", "position", where)
     g_bus = _int_list(doc, "generators", "bus_id", where)
-    for table, pos, n, extra in (("branches", br, net.n_branch, (f_id, t_id)), ("generators", gen, net.n_gen, (g_bus,))):
+    for table, pos, n, extra in (("branches", br, net.n_branch, (f_id, t_id)),
+                                 ("generators", gen, net.n_gen, (g_bus,))):
         if any(e.size != pos.size for e in extra):
             raise InputError("expected lists of equal length", where=f"{where}: {table}")
         bad = np.flatnonzero((pos < 0) | (pos >= n))
