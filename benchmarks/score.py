@@ -46,9 +46,19 @@ fewer than 10,000 samples ran, the time for 10,000 at the same rate (samples are
 and solved in fixed chunks, so time grows linearly in the count). Target: 10,000 samples in
 at most 60 s with 2 workers and at most 4 GB peak.
 
+State (``--state``, section ``state`` of its own file ``score_state.json``): the same synthetic
+samples of --state-network (built as above) scored by ``score_arrays`` three ways, interleaved
+over --repeat rounds: on the intact network, with one branch out in every sample (one state: the
+grouping's best case) and with a single outage per sample (a branch or a generator, drawn
+uniformly from the network's allowed single outages with a seeded generator: many states, a few
+samples each, the test-n1 case); samples per second (median) and the ratio of each to the
+intact rate, 1 worker, the ``reactive-limits`` profile.
+
 Usage: python benchmarks/score.py [--samples 10000] [--networks ieee14,ieee118] [--pandapower 30] [--quick]
        python benchmarks/score.py --scale [--scale-samples 10000[,N2,...]] [--scale-repeat 1]
-Writes benchmarks/results/score.json (or score_scale.json with --scale). Medians of --repeat runs.
+       python benchmarks/score.py --state [--state-network ieee118] [--state-samples 2000] [--repeat 3]
+Writes benchmarks/results/score.json (or score_scale.json with --scale, score_state.json with
+--state). Medians of --repeat runs.
 """
 
 from __future__ import annotations
@@ -77,6 +87,7 @@ from flowgauge.scoring import (DEFAULT_PROFILE, REACTIVE_LIMITS_PROFILE, STRICT_
 
 OUT = Path(__file__).parent / "results" / "score.json"
 OUT_SCALE = Path(__file__).parent / "results" / "score_scale.json"
+OUT_STATE = Path(__file__).parent / "results" / "score_state.json"
 SCALE_NETWORK = "activsg2000"
 SCALE_TARGET = {"samples": 10000, "workers": 2, "seconds_at_most": 60.0, "peak_memory_bytes_at_most": 4e9}
 
@@ -349,6 +360,8 @@ def time_scale(samples: int, repeat: int, seed: int, extra: tuple[int, ...] = ()
     out["seconds_for_10000_samples_to_target_ratio"] = rl["seconds_for_10000_samples"] / SCALE_TARGET["seconds_at_most"]
     peak = out.get("extrapolated_to_10000_samples", {}).get("tree_peak_rss_bytes", rl["tree_peak_rss_bytes_max"])
     out["peak_memory_to_target_ratio"] = peak / SCALE_TARGET["peak_memory_bytes_at_most"]
+    # the samples that peak was measured (or extrapolated) at: a peak below 10,000 samples is not the target's
+    out["peak_memory_at_samples"] = SCALE_TARGET["samples"] if "extrapolated_to_10000_samples" in out else samples
     out["met"] = bool(out["seconds_for_10000_samples_to_target_ratio"] <= 1.0 and out["peak_memory_to_target_ratio"] <= 1.0
                       and samples >= SCALE_TARGET["samples"])
     out["reactive_limits_to_strict_ratio"] = {
@@ -369,6 +382,68 @@ def main_scale(args) -> None:
     print(f"wrote {OUT_SCALE}")
 
 
+def state_flags(net, samples: int, seed: int):
+    """(one branch out everywhere, one single outage per sample): each a pair of flags (S, n_branch),
+    (S, n_gen), and the outage kinds drawn."""
+    from flowgauge.network import single_outages
+    outages = single_outages(net)
+    br0 = np.broadcast_to(np.asarray(net.in_service, bool), (samples, net.n_branch)).copy()
+    gen0 = np.ones((samples, net.n_gen), bool)
+    shared_br = br0.copy()
+    shared_br[:, outages.branches[outages.branches.size // 2]] = False
+    choices = np.r_[outages.branches, net.n_branch + outages.generators]
+    pick = Generator(PCG64(seed)).choice(choices, samples)
+    each_br, each_gen = br0.copy(), gen0.copy()
+    rows = np.arange(samples)
+    is_br = pick < net.n_branch
+    each_br[rows[is_br], pick[is_br]] = False
+    each_gen[rows[~is_br], pick[~is_br] - net.n_branch] = False
+    return {"one branch out": (shared_br, gen0), "single outage per sample": (each_br, each_gen)}, \
+        {"branches_allowed": int(outages.branches.size), "generators_allowed": int(outages.generators.size),
+         "samples_with_branch_out": int(is_br.sum()), "samples_with_generator_out": int((~is_br).sum())}
+
+
+def time_state(name: str, samples: int, repeat: int, seed: int) -> dict:
+    from flowgauge.network import group_states
+    net = load_network(name)
+    pd, qd, pg, vm, ref = inputs(net, samples, seed)
+    sid = np.arange(samples)
+    cases, drawn = state_flags(net, samples, seed)
+    runs = {"intact": {}, **{k: {"branch_in_service": b, "gen_in_service": g} for k, (b, g) in cases.items()}}
+    times = {k: [] for k in runs}
+    failure = {}
+    for _ in range(repeat):  # interleaved: the machine's load falls on every case alike
+        for k, extra in runs.items():
+            t0 = time.perf_counter()
+            agg, _ = score_arrays(net, sample_id=sid, pd_mw=pd, qd_mvar=qd, reference_cost_per_h=ref, pg_mw=pg,
+                                  vm_pu=vm, profile=REACTIVE_LIMITS_PROFILE, workers=1, **extra)
+            times[k].append(time.perf_counter() - t0)
+            failure[k] = agg["restoration_failure_causes"]["diverged"]
+    out = {"network": name, "samples": samples, "repeat": repeat, "profile": REACTIVE_LIMITS_PROFILE.name,
+           "workers": 1, "outages_drawn": drawn, "runs": {}}
+    base = samples / statistics.median(times["intact"])
+    for k in runs:
+        med = statistics.median(times[k])
+        states = 1 if k == "intact" else int(group_states(*cases[k])[0].shape[0])
+        out["runs"][k] = {"seconds_median": med, "seconds": times[k], "samples_per_second": samples / med,
+                          "ratio_to_intact": (samples / med) / base, "distinct_states": states,
+                          "diverged_share": failure[k]}
+    return out
+
+
+def main_state(args) -> None:
+    t_start = time.perf_counter()
+    res = time_state(args.state_network, args.state_samples, args.repeat, args.seed)
+    doc = {"benchmark": "score", "section": "state", "flowgauge_version": __version__,
+           "python": platform.python_version(), "machine": platform.machine(), "cpus": os.cpu_count(),
+           "quick": args.quick, "seconds_total": time.perf_counter() - t_start,
+           "load_average": list(os.getloadavg()), "state": res}
+    OUT_STATE.parent.mkdir(parents=True, exist_ok=True)
+    atomic_write_text(OUT_STATE, json.dumps(doc, indent=1, sort_keys=True) + "\n")
+    print(json.dumps(res["runs"], indent=1))
+    print(f"wrote {OUT_STATE}")
+
+
 def main() -> None:
     if len(sys.argv) == 7 and sys.argv[1] == "--scale-child":
         net_name, n, seed, prof, workers = sys.argv[2:]
@@ -387,7 +462,15 @@ def main() -> None:
                     help="sample count of every scale run; more counts after commas are run only with "
                          "reactive-limits and 2 workers (time and memory against the count)")
     ap.add_argument("--scale-repeat", type=int, default=1, help="fresh runs per configuration (median)")
+    ap.add_argument("--state", action="store_true", help=f"only the state section, into {OUT_STATE.name}")
+    ap.add_argument("--state-network", default="ieee118")
+    ap.add_argument("--state-samples", type=int, default=2000)
     args = ap.parse_args()
+    if args.state:
+        if args.quick:
+            args.state_samples, args.repeat = 256, 1
+        main_state(args)
+        return
     if args.scale:
         if args.quick:
             args.scale_samples = "512"
