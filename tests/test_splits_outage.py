@@ -177,6 +177,20 @@ def test_the_split_verifies_and_a_refused_state_is_named(built, tmp_path):
     assert main(["splits", "verify", str(bad)]) == 2
 
 
+def test_a_version_that_disagrees_with_the_state_columns_is_exit_3(built, tmp_path):
+    out, _, _ = built
+    from flowgauge.errors import IntegrityError
+    from flowgauge.splits._manifest import seal_manifest, write_manifest
+    bad = tmp_path / "v1"
+    shutil.copytree(out, bad)
+    doc = json.loads((bad / "manifest.json").read_text())
+    doc["format_version"] = 1
+    write_manifest(bad / "manifest.json", seal_manifest(doc))
+    with pytest.raises(IntegrityError, match=r"inputs\.parquet: the inputs carry per-sample states .* format_version is 1"):
+        verify_split(bad)
+    assert main(["splits", "verify", str(bad)]) == 3
+
+
 def test_frozen_ieee14_splits_still_verify_as_version_1(capsys):
     folders = sorted(str(p) for p in (REPO / "splits" / "ieee14").iterdir() if (p / "manifest.json").exists())
     assert folders
