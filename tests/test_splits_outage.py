@@ -186,7 +186,8 @@ def test_a_version_that_disagrees_with_the_state_columns_is_exit_3(built, tmp_pa
     doc = json.loads((bad / "manifest.json").read_text())
     doc["format_version"] = 1
     write_manifest(bad / "manifest.json", seal_manifest(doc))
-    with pytest.raises(IntegrityError, match=r"inputs\.parquet: the inputs carry per-sample states .* format_version is 1"):
+    with pytest.raises(IntegrityError,
+                       match=r"inputs\.parquet: the inputs carry per-sample states .* format_version is 1"):
         verify_split(bad)
     assert main(["splits", "verify", str(bad)]) == 3
 
