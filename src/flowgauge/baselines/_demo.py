@@ -22,8 +22,9 @@ DEMO_SPLITS = ("test-id", "test-ood", "test-edge")
 DEMO_SEEDS = {"train": 71, "test-id": 72, "test-ood": 73, "test-edge": 74}
 # samples per split when the demo builds its own (small, so the demo takes well under a minute)
 BUILT_SAMPLES = {"train": 60, "test-id": 20, "test-ood": 20, "test-edge": 10}
-# the maintenance scenario: its name in the demo's table (short: the table fits 80 columns), the branch out (id 2: circuit 2 of the
-# Orvanne corridor, bus 1 - bus 2) and how many of the first test-id samples it takes
+# the maintenance scenario: its name in the demo's table (short: the table fits 80 columns),
+# the branch out (id 2: circuit 2 of the Orvanne corridor, bus 1 - bus 2) and how many of the
+# first test-id samples it takes
 MAINTENANCE = "line-out"
 MAINTENANCE_BRANCH_ID = 2
 MAINTENANCE_SAMPLES = 20

@@ -64,7 +64,8 @@ def split_with_states(source, out: str | Path, branch_in_service, gen_in_service
     ``gen_in_service`` (S, n_gen) bool (one row per row taken) and references solved on each
     state network. Samples whose AC-OPF fails or misses the acceptance tolerances on their state
     network are left out and counted in the manifest's ``rejected``; the samples kept are
-    numbered 0 .. S-1 again, in order. The manifest keeps the
+    numbered 0 .. S-1 again, in order. The manifest has the format version of splits with
+    states. The manifest keeps the
     source's design and seed, records ``notes``, and drops the link to a training split (the
     regimes of a state differ). Returns the manifest; ``out`` appears only when complete."""
     from ..errors import InputError
@@ -72,7 +73,7 @@ def split_with_states(source, out: str | Path, branch_in_service, gen_in_service
     from ..splits import load_split
     from ..splits._builder import _file_entry, _seconds_stats
     from ..splits._coverage import coverage
-    from ..splits._manifest import seal_manifest, write_manifest
+    from ..splits._manifest import STATE_FORMAT_VERSION, seal_manifest, write_manifest
     from ..splits._store import INPUTS_FILE, MANIFEST_FILE, REFERENCES_FILE, inputs_table, references_table, \
         write_table
 
@@ -102,7 +103,8 @@ def split_with_states(source, out: str | Path, branch_in_service, gen_in_service
     m = {k: v for k, v in split.manifest.items() if k not in ("split_hash", "identity_hash", "train")}
     rej = Counter(m.get("rejected", {}))
     rej.update({f"state: {k}": v for k, v in rejected.items()})
-    m.update(samples=int(sid.size), notes=notes, rejected=dict(sorted(rej.items())),
+    m.update(format_version=STATE_FORMAT_VERSION, samples=int(sid.size), notes=notes,
+             rejected=dict(sorted(rej.items())),
              draws=int(m.get("draws", sid.size)) + int(sum(rejected.values())),
              files={"inputs": _file_entry(INPUTS_FILE, t_in, False),
                     "references": _file_entry(REFERENCES_FILE, t_ref, True)},

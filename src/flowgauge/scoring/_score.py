@@ -363,8 +363,9 @@ def score(predictions, split=None, *, profile: str | ScoringProfile | None = Non
     ``workers``: local processes for the restoration power flows; ``scheduler``: the address of
     a Dask scheduler to spread them over instead. ``progress(done, total)`` is called as the
     restoration power flows finish. A split with per-sample network states is scored on each
-    sample's state network (scorecard format 3, docs/metrics.md). The scorecard is the same bytes whatever ``workers`` and
-    ``scheduler``. Bad input raises InputError before anything is computed or written.
+    sample's state network (scorecard format 3, docs/metrics.md). The scorecard is the same
+    bytes whatever ``workers`` and ``scheduler``. Bad input raises InputError before anything is
+    computed or written.
     """
     prof = get_profile(profile)
     if isinstance(workers, bool) or not isinstance(workers, (int, np.integer)) or workers < 1:
