@@ -253,3 +253,21 @@ def test_bad_flags_in_a_split_are_one_clear_error(sp, tmp_path, capsys):
     assert "sample 2: branch 13 (id 14): islanding: bus 7 (id 8) cut off" in err
     assert "Traceback" not in err and len(err.strip().splitlines()) <= 2
     assert not (tmp_path / "island.scorecard.json").exists()
+
+
+def test_a_single_outage_split_from_the_builder_scores_its_reference_at_zero_gap(tmp_path):
+    # the builder's test-n1 design (one branch or generator out per sample, references solved on
+    # each state network): its own references are the optimum of each sample's network
+    from flowgauge.splits import build_split
+    build_split("ieee14", "test-n1", samples=8, seed=3, out=tmp_path / "ieee14" / "test-n1", train=False)
+    s = load_split(tmp_path / "ieee14" / "test-n1")
+    assert s.has_states
+    card = score(write_reference(s, tmp_path / "ref.json"), s)
+    a = card.aggregates
+    assert card.to_dict()["format_version"] == 3
+    assert max(abs(a["raw_gap_pct"]["max"]), abs(a["raw_gap_pct"]["mean"])) < 1e-6
+    assert a["restoration_failure_rate"] == 0.0
+    # hand: every sample has exactly one element out, so the kinds are those two, counted from the flags
+    n_branch_out = int((~s.branch_in_service).any(axis=1).sum())
+    assert {k: v["samples"] for k, v in a["by_outage"].items()} == {
+        k: v for k, v in (("branch out", n_branch_out), ("generator out", 8 - n_branch_out)) if v}
