@@ -106,6 +106,8 @@ def solve_restoration_chunk(net: Network, pd_mw, qd_mvar, pg_mw, vm_pu, powerflo
 
     enforce = bool(powerflow.get("enforce_q_limits", False))
     extra = {"max_switch_rounds": powerflow["max_switch_rounds"]} if enforce else {}
+    if "linear" in powerflow:  # set by the scorer of network states for its small groups (_state)
+        extra["linear"] = powerflow["linear"]
     res = solve_powerflow_batch(net, pd_mw=pd_mw, qd_mvar=qd_mvar, pg_mw=pg_mw, vm_pu=vm_pu,
                                 init=powerflow["start"], tol=powerflow["tolerance_pu"],
                                 max_iter=powerflow["max_iterations"], enforce_q_limits=enforce, **extra)
