@@ -208,7 +208,7 @@ def test_a_prediction_that_ignores_the_outage_is_scored_on_the_outage_network(sp
     assert (pg[4:8, GEN] > 1.0).all() and (raw[8:] < 1e-6).all()
 
 
-def test_scorecards_are_the_same_bytes_for_one_and_two_workers(sp, intact, tmp_path):
+def test_scorecards_are_the_same_bytes_for_one_and_two_workers_and_dask(sp, intact, tmp_path):
     path = tmp_path / "ignores.json"
     write_predictions(sp, pg_mw=intact.references.pg_mw[SRC_ROWS] * 1.01, vm_pu=intact.references.vm_pu[SRC_ROWS],
                       model=MODEL, path=path)
@@ -217,6 +217,10 @@ def test_scorecards_are_the_same_bytes_for_one_and_two_workers(sp, intact, tmp_p
     one = score(path, sp, profile=prof, workers=1).to_bytes()
     two = score(path, sp, profile=prof, workers=2).to_bytes()
     assert one == two
+    from distributed import LocalCluster
+    with LocalCluster(n_workers=1, threads_per_worker=1, processes=False, dashboard_address=None) as cluster:
+        dask = score(path, sp, profile=prof, scheduler=cluster.scheduler_address).to_bytes()
+    assert dask == one
 
 
 def _damaged(sp, tmp_path, br, gen):
