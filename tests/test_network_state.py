@@ -97,9 +97,8 @@ def test_powerflow_on_an_outage_matches_pypower_runpf_without_the_element(nets, 
 
 def test_demo_first_reference_generator_out_keeps_voltages(nets):
     # The reference bus of demo holds generators 0 and 1 (network data). With generator 0 out,
-    # voltages match PYPOWER runpf without it; the power flow still books the balance on the
-    # first generator of the reference bus (docs/topology.md, known difference), so only
-    # voltages are compared here.
+    # voltages and every generator's output match PYPOWER runpf without it (the balance goes to
+    # the first in-service generator of the reference bus, docs/topology.md).
     from pypower.api import ppoption, runpf
     state_net, ppc = _outage(nets["demo"], "generator", 0)
     res = solve_powerflow(state_net)
@@ -109,6 +108,9 @@ def test_demo_first_reference_generator_out_keeps_voltages(nets):
     assert ok and res.converged
     np.testing.assert_allclose(res.vm_pu, ref["bus"][:, 7], atol=1e-6)
     np.testing.assert_allclose(res.va_deg, ref["bus"][:, 8], atol=1e-5)
+    # PYPOWER's case has generator 0's row deleted: our generator k > 0 is its row k - 1
+    np.testing.assert_allclose(res.pg_mw[1:], ref["gen"][:, 1], atol=1e-6)
+    assert res.pg_mw[0] == 0.0
 
 
 def test_generator_out_zeroes_its_data_and_a_lone_pv_bus_becomes_pq(nets):
