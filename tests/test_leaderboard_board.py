@@ -255,3 +255,18 @@ def test_missing_split_names_the_submission(board, tmp_path, monkeypatch, capsys
     assert re.match(r"Error: submissions/ieee14/test-id/linear.json: its split ieee14/test-id is "
                     r"not among the frozen splits \(no split with this split_hash under .*no-splits\)",
                     err), err
+
+
+def test_a_split_no_entry_of_the_network_has_is_left_out_of_its_overall_table(board):
+    # The rules name test-edge too, but this network's entries have no test-edge (as a network
+    # without hourly loads has no test-year): the overall table ranks over the splits the
+    # network has, not "no submission for test-edge" for every entry. Read back with pandas.
+    import pandas as pd
+    (board / "rules.toml").write_text(RULES.replace('splits = ["test-id", "test-ood"]',
+                                                    'splits = ["test-id", "test-ood", "test-edge"]'))
+    assert main(["rank", str(board)]) == 0
+    table = pd.read_csv(board / "ranking.csv")
+    overall = table[(table["network"] == "ieee14") & (table["scope"] == "all")]
+    assert len(overall) == len(ENTRIES)
+    assert overall["rank"].notna().all()
+    assert all("test-id" in s and "test-edge" not in s for s in overall["splits"])

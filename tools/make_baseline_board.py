@@ -4,8 +4,13 @@ each split's reference with seeded noise at three levels, as
 leaderboard/submissions/calibration/<network>/<split>/noise-<level>.parquet (shown apart on the
 board, not ranked).
 
-    python tools/make_baseline_board.py [--networks demo ieee14 ...]
+    python tools/make_baseline_board.py [--networks demo ieee14 ...] [--splits test-id ...]
     flowgauge rank          # then rescore and rebuild the tables and the page
+
+Every frozen test split of each network gets entries (test-id, test-ood, test-edge, and
+test-year / test-n1 where frozen), unless --splits narrows them; the baselines that learn
+(nearest, linear) are fitted on the network's train split, which must be present (for the large
+systems, rebuild it first: flowgauge splits rebuild <network>/train).
 
 Run it after the frozen splits change (their hashes are recorded in every predictions file).
 """
@@ -22,19 +27,23 @@ from flowgauge.submission import write_predictions
 from flowgauge.splits import load_split, splits_root
 
 ROOT = Path(__file__).resolve().parents[1]
-TEST_SPLITS = ("test-id", "test-ood", "test-edge")
+TEST_SPLITS = ("test-id", "test-ood", "test-edge", "test-year", "test-n1")
 
 
 def main(argv: list[str] | None = None) -> int:
     ap = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
     ap.add_argument("--networks", nargs="+", default=None, help="default: every network with frozen splits")
     ap.add_argument("--out", type=Path, default=ROOT / "leaderboard" / "submissions")
+    ap.add_argument("--splits", nargs="+", default=list(TEST_SPLITS), help="test splits to enter (where frozen)")
     args = ap.parse_args(argv)
     root = splits_root()
-    networks = args.networks or sorted(p.name for p in root.iterdir() if p.is_dir())
+    networks = args.networks or sorted(p.name for p in root.iterdir()
+                                       if p.is_dir() and (p / "train" / "manifest.json").exists())
     for network in networks:
         train = load_split(root / network / "train")
-        for split_name in TEST_SPLITS:
+        for split_name in args.splits:
+            if not (root / network / split_name / "manifest.json").exists():
+                continue
             split = load_split(root / network / split_name)
             for name in sorted(BASELINES):
                 out = args.out / network / split_name / f"{name}.parquet"  # Parquet: a tenth of the JSON's size

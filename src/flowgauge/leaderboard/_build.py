@@ -221,13 +221,16 @@ def _network_tables(network: str, entries: dict, rules: Rules, calibration: dict
         e: "declares it used more than the training split; rules.toml ranks such entries only with "
            "[entries] allow_extra_data = true"
         for e, s in entries.items() if any(not _training_only(sc.card) for sc in s.values())}
-    tables = [rank_table(network, "all", rules.splits, entries, rules, excluded)]
-    for split in rules.splits:
+    # the splits of the rules that this network has entries for (test-year exists only where
+    # hourly loads ship with the case, test-n1 only where single-outage splits are frozen)
+    splits = tuple(s for s in rules.splits if any(s in by_split for by_split in entries.values()))
+    tables = [rank_table(network, "all", splits, entries, rules, excluded)]
+    for split in splits:
         present = {e: s for e, s in entries.items() if split in s}
         if present:
             tables.append(rank_table(network, split, (split,), present, rules, excluded))
     if calibration:
-        tables.append(rank_table(network, CALIBRATION_SCOPE, rules.splits, calibration, rules))
+        tables.append(rank_table(network, CALIBRATION_SCOPE, splits, calibration, rules))
     return tables
 
 
