@@ -265,6 +265,7 @@ def state_from_table(table: pa.Table, path: Path, n_branch: int,
                 and pa.types.is_boolean(t.value_type)):
             raise InputError(f"expected a list of true/false flags per sample, got column type {t}",
                              where=f"{path}: column {name}")
+        _check_state_widths(table, col, name, n, path)
         try:
             a = _column_array(col, name)
         except InputError as exc:
@@ -274,6 +275,21 @@ def state_from_table(table: pa.Table, path: Path, n_branch: int,
                              f"{a.shape}", where=f"{path}: column {name}")
         out.append(a)
     return out[0], out[1]
+
+
+def _check_state_widths(table: pa.Table, col: pa.ChunkedArray, name: str, n: int, path: Path) -> None:
+    """The first sample whose flag list is not ``n`` long (or is null), named by its id."""
+    import pyarrow.compute as pc
+    if table.num_rows == 0:
+        return
+    lengths = pc.list_value_length(col).to_numpy(zero_copy_only=False)
+    bad = np.flatnonzero(np.isnan(lengths.astype(float)) | (lengths != n))
+    if bad.size:
+        i = int(bad[0])
+        sid = table.column("sample_id")[i].as_py() if "sample_id" in table.column_names else i
+        got = "no list" if np.isnan(float(lengths[i])) else f"{int(lengths[i])}"
+        raise InputError(f"expected {n} flags (the manifest's element count, one per element in its "
+                         f"order), got {got}", where=f"{path}: sample {sid}: column {name}")
 
 
 def kinds_from_table(table: pa.Table) -> np.ndarray | None:
