@@ -1,5 +1,8 @@
 """The frozen splits in splits/: present, intact, and reproducible by a fresh solve."""
 
+import importlib.util
+from pathlib import Path
+
 import numpy as np
 import pytest
 
@@ -8,11 +11,12 @@ from flowgauge.network import to_ppc
 from flowgauge.opf import ACOPF, OPFSettings
 from flowgauge.splits import SPLIT_NAMES, list_splits, load_split, splits_root, verify_split
 
-NETWORKS = ("demo", "ieee14", "ieee30", "ieee57", "ieee118", "ieee300",
-            "ieee14-limits", "ieee30-limits", "ieee57-limits", "ieee118-limits")
-# planned counts (tools/freeze_splits.py); a smaller frozen count must say why in the manifest's notes
-PLANNED = {"test-id": 500, "test-ood": 500, "test-edge": 200, "train": 2000, "train-local": 2000}
-PLANNED_LARGE_TRAIN = {"ieee118": 1000, "ieee300": 1000}
+# The plan is the freezing tool's own (tools/freeze_splits.py): networks, splits and counts.
+_spec = importlib.util.spec_from_file_location("freeze_splits", Path(__file__).resolve().parents[1] / "tools" / "freeze_splits.py")
+PLAN = importlib.util.module_from_spec(_spec)
+_spec.loader.exec_module(PLAN)
+NETWORKS = tuple(PLAN.NETWORKS) + tuple(PLAN.LARGE)
+LARGE = set(PLAN.LARGE)
 FROZEN = list_splits()
 
 
@@ -22,7 +26,10 @@ def _ids(path):
 
 def test_every_network_has_every_split():
     have = {(p.parent.name, p.name) for p in FROZEN}
-    missing = [f"{n}/{s}" for n in NETWORKS for s in SPLIT_NAMES if (n, s) not in have]
+    # the training splits of the large systems are committed as recipes only (not as data)
+    missing = [f"{n}/{s}" for n in NETWORKS for s in PLAN.splits_of(n)
+               if PLAN.committed_data(n, s) and (n, s) not in have]
+    assert set(s for n in NETWORKS for s in PLAN.splits_of(n)) <= set(SPLIT_NAMES)
     assert not missing, f"frozen splits missing under {splits_root()}: {missing}"
 
 
@@ -31,8 +38,7 @@ def test_frozen_split_verifies_and_counts_match_the_plan(path):
     r = verify_split(path)
     assert r.references_present
     m = load_split(path, references=False).manifest
-    large = r.split in ("train", "train-local")
-    plan = PLANNED_LARGE_TRAIN.get(r.network, PLANNED[r.split]) if large else PLANNED[r.split]
+    plan = PLAN.planned(r.network, r.split)
     assert r.samples == plan or (r.samples < plan and str(plan) in m["notes"])
     assert m["draws"] == r.samples + sum(m["rejected"].values())
 
@@ -43,7 +49,8 @@ def test_fresh_solves_agree_with_frozen_references(path):
     solver = ACOPF(s.network, OPFSettings())
     refs = s.references
     assert set(refs.status.tolist()) == {"converged"}
-    for i in sorted({0, s.n_samples // 2}):
+    # one sample on the large systems (a 2,000-bus solve takes seconds), two elsewhere
+    for i in ([0] if s.network_name in LARGE else sorted({0, s.n_samples // 2})):
         res = solver.solve(s.pd_mw[i], s.qd_mvar[i])
         assert res.status == "converged"
         # solver tolerance: cost_tol 1e-6 relative; voltages to feasibility tolerance
@@ -52,7 +59,9 @@ def test_fresh_solves_agree_with_frozen_references(path):
 
 
 # ieee300 is left to the re-solve above: PYPOWER takes ~10 s on it, over this area's test budget
-@pytest.mark.parametrize("path", [p for p in FROZEN if p.name == "test-id" and p.parent.name != "ieee300"], ids=_ids)
+# (and the large systems: tests/test_opf_large.py checks their solver against PYPOWER and Ipopt)
+@pytest.mark.parametrize("path", [p for p in FROZEN if p.name == "test-id" and p.parent.name != "ieee300"
+                                  and p.parent.name not in LARGE], ids=_ids)
 def test_frozen_references_match_pypower(path):
     from pypower.api import ppoption, runopf
     s = load_split(path)
