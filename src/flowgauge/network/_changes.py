@@ -20,7 +20,7 @@ import numpy as np
 
 from .._io import read_input_bytes
 from ..errors import InputError
-from ._matpower import _FUNCTION, _NUMBER, _statements
+from ._matpower import _FUNCTION, _NUMBER, _matrix_rows, _number, _statements
 
 __all__ = ["ChangeTable", "read_change_table", "parse_change_table", "CONSTANTS", "SUPPORTED", "AreaLoads",
            "area_loads", "check_areas", "AREA_COLUMNS",
@@ -95,8 +95,7 @@ class ChangeTable:
 
 def _value(tok: str, where: str) -> float:
     if _NUMBER.fullmatch(tok):
-        t = tok.lower().replace("d", "e")
-        return float("inf") if t in ("inf", "+inf") else float("-inf") if t == "-inf" else float(t)
+        return _number(tok)
     if _NAME.fullmatch(tok):
         sign = -1.0 if tok[0] == "-" else 1.0
         name = tok.lstrip("+-")
@@ -110,18 +109,13 @@ def _value(tok: str, where: str) -> float:
 def _rows(body: str, first_line: int, path: str) -> tuple[np.ndarray, np.ndarray]:
     rows: list[list[float]] = []
     lines: list[int] = []
-    for k, text in enumerate(body.split("\n")):
-        lineno = first_line + k
-        for part in text.split(";"):
-            toks = part.replace(",", " ").split()
-            if not toks:
-                continue
-            where = f"{path}:{lineno}"
-            if len(toks) != 7:
-                raise InputError(f"a change-table row has 7 entries (label prob table row col chgtype newval), "
-                                 f"this one {len(toks)}", where=where)
-            rows.append([_value(t, where) for t in toks])
-            lines.append(lineno)
+    for lineno, toks in _matrix_rows(body, first_line):
+        where = f"{path}:{lineno}"
+        if len(toks) != 7:
+            raise InputError(f"a change-table row has 7 entries (label prob table row col chgtype newval), "
+                             f"this one {len(toks)}", where=where)
+        rows.append([_value(t, where) for t in toks])
+        lines.append(lineno)
     if not rows:
         raise InputError("the change table has no rows", where=f"{path}:{first_line}")
     return np.array(rows, dtype=float), np.array(lines, dtype=np.int64)

@@ -116,23 +116,33 @@ def _statements(text: str, path: str) -> list[tuple[int, str]]:
     return stmts
 
 
+def _number(tok: str) -> float:
+    """The value of a token that matches ``_NUMBER`` (``1d3`` is 1000, ``Inf`` infinite)."""
+    t = tok.lower().replace("d", "e")
+    return math.inf if t in ("inf", "+inf") else -math.inf if t == "-inf" else float(t)
+
+
+def _matrix_rows(body: str, first_line: int):
+    """The rows of a bracketed matrix body as ``(line number, tokens)``: rows end at ``;`` or a
+    new line, values are split by blanks or commas, empty rows are skipped."""
+    for k, line in enumerate(body.split("\n")):
+        for part in line.split(";"):
+            toks = part.replace(",", " ").split()
+            if toks:
+                yield first_line + k, toks
+
+
 def _parse_matrix(body: str, first_line: int, path: str, name: str) -> tuple[np.ndarray, list[int]]:
     rows: list[list[float]] = []
     row_lines: list[int] = []
-    for k, line in enumerate(body.split("\n")):
-        lineno = first_line + k
-        for part in line.split(";"):
-            part = part.replace(",", " ").strip()
-            if not part:
-                continue
-            vals = []
-            for tok in part.split():
-                if not _NUMBER.fullmatch(tok):
-                    raise InputError(f"mpc.{name}: {tok[:40]!r} is not a number", where=f"{path}:{lineno}")
-                t = tok.lower().replace("d", "e")
-                vals.append(math.inf if t in ("inf", "+inf") else -math.inf if t == "-inf" else float(t))
-            rows.append(vals)
-            row_lines.append(lineno)
+    for lineno, toks in _matrix_rows(body, first_line):
+        vals = []
+        for tok in toks:
+            if not _NUMBER.fullmatch(tok):
+                raise InputError(f"mpc.{name}: {tok[:40]!r} is not a number", where=f"{path}:{lineno}")
+            vals.append(_number(tok))
+        rows.append(vals)
+        row_lines.append(lineno)
     if not rows:
         return np.zeros((0, 0)), []
     width = len(rows[0])
