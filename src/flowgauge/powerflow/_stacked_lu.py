@@ -25,6 +25,7 @@ import scipy.sparse as sp
 import scipy.sparse.linalg as spla
 
 from ..physics import JacobianPattern
+from . import _lu_kernel
 
 __all__ = ["StackedLU", "RESIDUAL_TOL", "fill_reducing_order"]
 
@@ -127,12 +128,19 @@ class StackedLU:
         self.diag = self._find(np.arange(n), np.arange(n))
         self.j_rows_old, self.j_cols_old = pat.indices.astype(np.int64), jcol
         self._sum_rows = _ones(self.j_rows_old, n)
+        # the same sums for the compiled check: each row's entries in increasing order
+        self._row_ptr = np.ascontiguousarray(self._sum_rows.indptr, np.int32)
+        self._row_entries = np.ascontiguousarray(self._sum_rows.indices, np.int32)
+        self._cols32 = np.ascontiguousarray(jcol, np.int32)
         self._schedule(keys // n, keys % n)
 
-    def _schedule(self, fr: np.ndarray, fc: np.ndarray) -> None:
+    def _basics(self, fr: np.ndarray, fc: np.ndarray):
+        """Levels and updates of the elimination: (low, upp, level, a, b, t), where ``low`` and
+        ``upp`` are the L entries (i, k), i > k, and strict U entries (k, j), j > k, ``level``
+        (n,) the level of each pivot, and update u is F[t_u] -= F[a_u] F[b_u] (L[i, k] U[k, j])."""
         n = self.n
-        low = np.flatnonzero(fr > fc)                 # L entries (i, k), i > k
-        upp = np.flatnonzero(fr < fc)                 # strict U entries (k, j), j > k
+        low = np.flatnonzero(fr > fc)
+        upp = np.flatnonzero(fr < fc)
         li, lk = fr[low], fc[low]
         level = np.zeros(n, np.int64)
         while True:  # longest dependency chain; one pass per level
@@ -141,8 +149,6 @@ class StackedLU:
             if np.array_equal(new, level):
                 break
             level = new
-        self.n_levels = int(level.max()) + 1
-        # updates F[i, j] -= L[i, k] U[k, j] for every L entry (i, k) and U entry (k, j)
         uk = fr[upp]
         u_order = np.argsort(uk, kind="stable")
         upp_s = upp[u_order]
@@ -154,21 +160,69 @@ class StackedLU:
         t = self._find(fr[a], fc[b])
         if not np.array_equal(self._keys[np.minimum(t, self.nnz - 1)], fr[a] * n + fc[b]):
             raise RuntimeError("an update falls outside the filled pattern")
-        k_of_update = fc[a]
-        # the pivots, L entries, updates and U entries of each level, in increasing index order
-        # (a stable sort by level: one pass instead of one search per level)
-        by_piv, by_low = _groups(level, self.n_levels), _groups(level[lk], self.n_levels)
-        by_upd, by_upp = _groups(level[k_of_update], self.n_levels), _groups(level[fr[upp]], self.n_levels)
-        self.factor_steps, self.forward_steps, self.backward_steps = [], [], []
-        for lev in range(self.n_levels):  # loop over elimination levels, each vectorised
-            piv = by_piv[lev]
-            ls = low[by_low[lev]]
-            us = by_upd[lev]
-            self.factor_steps.append((ls, self.diag[fc[ls]], a[us], b[us], *_summing(t[us])))
-            self.forward_steps.append((ls, fc[ls], *_summing(fr[ls])))
-            ub = upp[by_upp[lev]]
-            self.backward_steps.append((piv, ub, fc[ub], *_summing(fr[ub]), self.diag[piv]))
-        self.backward_steps.reverse()
+        return low, upp, level, a, b, t
+
+    def _schedule(self, fr: np.ndarray, fc: np.ndarray) -> None:
+        """The compiled kernel's program (:class:`._lu_kernel.Program`).
+
+        In the level order (what :meth:`solve_by_entry_numpy` runs), level l divides the L
+        entries (i, k) of its pivots k by U[k, k], then subtracts from each target the sum of
+        its level-l terms, summed in their enumeration order from 0.0. The program does the
+        same operations, each target's sums identical, in an order that keeps data close: the
+        factorisation row by row (the filled entries are stored row after row) and within a
+        row level by level. An update of row i at level l reads L entries of row i, divided
+        earlier in the row at level l, and U entries of earlier rows, final."""
+        n = self.n
+        low, upp, level, a, b, t = self._basics(fr, fc)
+        n_lev = self.n_levels = int(level.max()) + 1
+        prog = _lu_kernel.Program()
+        i32 = lambda v: np.ascontiguousarray(v, np.int32)  # noqa: E731
+        prog.j_to_f, prog.nnz = i32(self.j_to_f), int(self.nnz)
+        prog.old_of_new, prog.new_of_old = i32(self.old_of_new), i32(self.new_of_old)
+        div_key = fr[low] * n_lev + level[fc[low]]
+        upd_key = fr[t] * n_lev + level[fc[a]]
+        steps = np.unique(div_key)  # every update's step has its division: the L entry (i, k)
+        d_order = np.argsort(div_key, kind="stable")
+        prog.div_ptr = i32(np.searchsorted(div_key[d_order], np.r_[steps, n * n_lev]))
+        prog.div_entry, prog.div_pivot = i32(low[d_order]), i32(self.diag[fc[low]][d_order])
+        prog.upd_ptr, prog.upd_target, prog.term_ptr, prog.term_a, prog.term_b = _lu_kernel.flat_groups(
+            upd_key, steps, t, a, b)
+        # forward substitution level by level: y[i] -= sum of L[i, k] y[k] over the level's k
+        levels = np.arange(n_lev)
+        prog.fwd_ptr, prog.fwd_target, prog.fwd_term_ptr, prog.fwd_l, prog.fwd_y = _lu_kernel.flat_groups(
+            level[fc[low]], levels, fr[low], low, fc[low])
+        # backward substitution, last level first: y[k] -= sum of U[k, j] y[j], then y[k] /= U[k, k]
+        rev = n_lev - 1 - level
+        prog.bwd_ptr, prog.bwd_target, prog.bwd_term_ptr, prog.bwd_u, prog.bwd_y = _lu_kernel.flat_groups(
+            rev[fr[upp]], levels, fr[upp], upp, fc[upp])
+        p_order = np.argsort(rev, kind="stable")
+        prog.piv_ptr = i32(np.searchsorted(rev[p_order], np.r_[levels, n_lev]))
+        prog.piv, prog.piv_diag = i32(p_order), i32(self.diag[p_order])
+        self.program = prog
+        self._fr_fc = (fr, fc)
+
+    def _numpy_steps(self):
+        """The level schedule for :meth:`solve_by_entry_numpy` (built on first use)."""
+        if getattr(self, "_steps", None) is None:
+            fr, fc = self._fr_fc
+            low, upp, level, a, b, t = self._basics(fr, fc)
+            lk = fc[low]
+            # the pivots, L entries, updates and U entries of each level, in increasing index
+            # order (a stable sort by level: one pass instead of one search per level)
+            by_piv, by_low = _groups(level, self.n_levels), _groups(level[lk], self.n_levels)
+            by_upd, by_upp = _groups(level[fc[a]], self.n_levels), _groups(level[fr[upp]], self.n_levels)
+            factor_steps, forward_steps, backward_steps = [], [], []
+            for lev in range(self.n_levels):  # loop over elimination levels, each vectorised
+                piv = by_piv[lev]
+                ls = low[by_low[lev]]
+                us = by_upd[lev]
+                factor_steps.append((ls, self.diag[fc[ls]], a[us], b[us], *_summing(t[us])))
+                forward_steps.append((ls, fc[ls], *_summing(fr[ls])))
+                ub = upp[by_upp[lev]]
+                backward_steps.append((piv, ub, fc[ub], *_summing(fr[ub]), self.diag[piv]))
+            backward_steps.reverse()
+            self._steps = (factor_steps, forward_steps, backward_steps)
+        return self._steps
 
     def solve(self, data: np.ndarray, rhs: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """Solve ``A_s x_s = b_s`` for every sample.
@@ -179,33 +233,42 @@ class StackedLU:
         return self.solve_by_entry(np.ascontiguousarray(data.T), rhs)
 
     def solve_by_entry(self, data: np.ndarray, rhs: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        """As :meth:`solve`, with ``data`` in the transposed layout (nnz, S)."""
+        """As :meth:`solve`, with ``data`` in the transposed layout (nnz, S). Runs the compiled
+        kernel (:mod:`._lu_kernel`); bit for bit what :meth:`solve_by_entry_numpy` gives."""
+        x = _lu_kernel.run(self.program, data, rhs)
+        ok = _lu_kernel.residual_ok(data, x, rhs, self._row_ptr, self._row_entries, self._cols32, RESIDUAL_TOL)
+        return x, ok
+
+    def solve_by_entry_numpy(self, data: np.ndarray, rhs: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """As :meth:`solve_by_entry`, vectorised across samples in numpy (the reference the
+        compiled kernel is checked against)."""
         f = np.zeros((self.nnz, data.shape[1]))
         f[self.j_to_f] = data
         # rows are gathered with np.take (the same values as f[idx], copied faster); each
         # "f[i] = take(f, i) - u" is what "f[i] -= u" does, written out
         take = np.take
+        factor_steps, forward_steps, backward_steps = self._numpy_steps()
         with np.errstate(all="ignore"):
-            for ls, ld, a, b, tt, m in self.factor_steps:
+            for ls, ld, a, b, tt, m in factor_steps:
                 f[ls] = _apply(np.divide, take(f, ls, axis=0), take(f, ld, axis=0))
                 if a.size:
                     f[tt] = _minus(take(f, tt, axis=0), m, _apply(np.multiply, take(f, a, axis=0),
                                                                    take(f, b, axis=0)))
             y = np.ascontiguousarray(rhs.T[self.old_of_new])
-            for ls, lk, ri, m in self.forward_steps:
+            for ls, lk, ri, m in forward_steps:
                 if ls.size:
                     y[ri] = _minus(take(y, ri, axis=0), m, _apply(np.multiply, take(f, ls, axis=0),
                                                                    take(y, lk, axis=0)))
-            for piv, ub, uj, kk, m, dpiv in self.backward_steps:
+            for piv, ub, uj, kk, m, dpiv in backward_steps:
                 if ub.size:
                     y[kk] = _minus(take(y, kk, axis=0), m, _apply(np.multiply, take(f, ub, axis=0),
                                                                    take(y, uj, axis=0)))
                 y[piv] = _apply(np.divide, take(y, piv, axis=0), take(f, dpiv, axis=0))
             x = y[self.new_of_old].T
-            ok = self._residual_ok(data, x, rhs)
+            ok = self._residual_ok_numpy(data, x, rhs)
         return np.ascontiguousarray(x), ok
 
-    def _residual_ok(self, data: np.ndarray, x: np.ndarray, rhs: np.ndarray) -> np.ndarray:
+    def _residual_ok_numpy(self, data: np.ndarray, x: np.ndarray, rhs: np.ndarray) -> np.ndarray:
         """Componentwise residual check; ``data`` (nnz, S), ``x`` and ``rhs`` (S, n)."""
         prod = data * x.T[self.j_cols_old]
         res = (self._sum_rows @ prod).T - rhs

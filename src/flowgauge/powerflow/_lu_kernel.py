@@ -1,0 +1,183 @@
+"""Compiled numeric factor-and-solve for :class:`~._stacked_lu.StackedLU`'s fixed schedule.
+
+The schedule (which entries divide, which updates go where, in which order) is built once per
+sparsity pattern in numpy; this module runs it sample by sample in machine code (numba). Each
+sample's filled LU (some 80,000 entries on a 2,000-bus Jacobian) then stays in the processor's
+cache, where the vectorised numpy version streams every level of every sample through memory.
+
+The results are bit for bit those of the vectorised version (``StackedLU.solve_by_entry_numpy``):
+the same IEEE operations on the same operands, each target's terms summed in the same order,
+starting from 0.0 (what a sparse product does), with no fused multiply-add (numba's default,
+``fastmath=False``). ``tests/test_powerflow_stacked_lu.py`` checks this.
+
+A block of ``BLOCK`` = 8 samples is factorised side by side, each entry's 8 values in one cache
+line. The per-entry operations are written out lane by lane, loads before stores, and compiled
+with LLVM's straight-line (SLP) vectoriser, which numba leaves off by default: it is switched on
+while this module's kernel runs (and so compiles), and restored after (:func:`run`). Vector lanes do the same
+IEEE operations as scalar code, so this changes speed, not bits.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from numba import njit
+from numba.core import config as _numba_config
+
+__all__ = ["Program", "run", "BLOCK"]
+
+# Samples factorised side by side (the lane-by-lane helpers below are written for 8): each
+# schedule index read serves 8 samples, and their values of one entry share a cache line.
+BLOCK = 8
+
+
+class Program:
+    """The schedule as flat integer arrays (one pass over levels, no Python objects)."""
+
+    __slots__ = ("j_to_f", "nnz", "old_of_new", "new_of_old",
+                 "div_ptr", "div_entry", "div_pivot",
+                 "upd_ptr", "upd_target", "term_ptr", "term_a", "term_b",
+                 "fwd_ptr", "fwd_target", "fwd_term_ptr", "fwd_l", "fwd_y",
+                 "bwd_ptr", "bwd_target", "bwd_term_ptr", "bwd_u", "bwd_y",
+                 "piv_ptr", "piv", "piv_diag")
+
+
+def flat_groups(key: np.ndarray, steps: np.ndarray, target: np.ndarray, a: np.ndarray, b: np.ndarray):
+    """Terms (a, b) of target ``target`` in step ``key`` (all (n_terms,), in enumeration
+    order), grouped by step (in the order of ``steps``, sorted) and within a step by target.
+    Returns (step pointer into the groups, group targets, group pointer into the terms, a, b),
+    as int32; each group's terms keep their enumeration order (the order a sparse product
+    sums them in)."""
+    order = np.lexsort((target, key))  # stable: ties keep the enumeration order
+    k, tg = key[order], target[order]
+    new = np.ones(k.size, bool)
+    new[1:] = (k[1:] != k[:-1]) | (tg[1:] != tg[:-1])
+    g_start = np.flatnonzero(new)
+    i32 = lambda v: np.ascontiguousarray(v, np.int32)  # noqa: E731
+    step_ptr = np.searchsorted(k[g_start], np.r_[steps, steps[-1] + 1 if steps.size else 0])
+    return (i32(step_ptr), i32(tg[g_start]), i32(np.r_[g_start, k.size]), i32(a[order]), i32(b[order]))
+
+
+@njit(cache=True, error_model="numpy", nogil=True)
+def _run(data, rhs, x, j_to_f, nnz, old_of_new, new_of_old,
+         div_ptr, div_entry, div_pivot, upd_ptr, upd_target, term_ptr, term_a, term_b,
+         fwd_ptr, fwd_target, fwd_term_ptr, fwd_l, fwd_y,
+         bwd_ptr, bwd_target, bwd_term_ptr, bwd_u, bwd_y, piv_ptr, piv, piv_diag):
+    n_samples, n = rhs.shape
+    f = np.empty((nnz, 8))
+    y = np.empty((n, 8))
+    acc = np.empty(8)
+    for s0 in range(0, n_samples, 8):  # a block of samples at a time, side by side
+        nb = min(8, n_samples - s0)
+        f[:] = 0.0
+        y[:] = 0.0
+        for e in range(j_to_f.size):
+            for b in range(nb):
+                f[j_to_f[e], b] = data[e, s0 + b]
+        for i in range(n):
+            for b in range(nb):
+                y[i, b] = rhs[s0 + b, old_of_new[i]]
+        # factorisation, step by step (one row's pivots of one level): divide the step's L
+        # entries by their pivots, then subtract from each target the sum of its terms
+        for st in range(div_ptr.size - 1):
+            for p in range(div_ptr[st], div_ptr[st + 1]):
+                e, d = div_entry[p], div_pivot[p]
+                for b in range(8):
+                    f[e, b] = f[e, b] / f[d, b]
+            for g in range(upd_ptr[st], upd_ptr[st + 1]):
+                t, q0, q1 = upd_target[g], term_ptr[g], term_ptr[g + 1]
+                if q1 - q0 == 1:  # most targets have one term: its sum is 0.0 + the term
+                    i, j = term_a[q0], term_b[q0]
+                    for b in range(8):
+                        f[t, b] = f[t, b] - (0.0 + f[i, b] * f[j, b])
+                    continue
+                for b in range(8):
+                    acc[b] = 0.0
+                for q in range(q0, q1):
+                    i, j = term_a[q], term_b[q]
+                    for b in range(8):
+                        acc[b] += f[i, b] * f[j, b]
+                for b in range(8):
+                    f[t, b] = f[t, b] - acc[b]
+        # forward substitution, level by level (the targets of one level are distinct)
+        for g in range(fwd_ptr[fwd_ptr.size - 1]):
+            t, q0, q1 = fwd_target[g], fwd_term_ptr[g], fwd_term_ptr[g + 1]
+            for b in range(8):
+                acc[b] = 0.0
+            for q in range(q0, q1):
+                i, j = fwd_l[q], fwd_y[q]
+                for b in range(8):
+                    acc[b] += f[i, b] * y[j, b]
+            for b in range(8):
+                y[t, b] = y[t, b] - acc[b]
+        # backward substitution: per level (last first), the updates, then the divisions
+        for lev in range(bwd_ptr.size - 1):
+            for g in range(bwd_ptr[lev], bwd_ptr[lev + 1]):
+                t, q0, q1 = bwd_target[g], bwd_term_ptr[g], bwd_term_ptr[g + 1]
+                for b in range(8):
+                    acc[b] = 0.0
+                for q in range(q0, q1):
+                    i, j = bwd_u[q], bwd_y[q]
+                    for b in range(8):
+                        acc[b] += f[i, b] * y[j, b]
+                for b in range(8):
+                    y[t, b] = y[t, b] - acc[b]
+            for p in range(piv_ptr[lev], piv_ptr[lev + 1]):
+                i, d = piv[p], piv_diag[p]
+                for b in range(8):
+                    y[i, b] = y[i, b] / f[d, b]
+        for i in range(n):
+            for b in range(nb):
+                x[s0 + b, i] = y[new_of_old[i], b]
+
+
+@njit(cache=True, error_model="numpy", nogil=True)
+def _residual_ok(data, x, rhs, row_ptr, row_entries, cols, tol, ok):
+    """Componentwise residual check of each sample (what ``StackedLU._residual_ok_numpy``
+    computes, each row's sums in the same order): ``ok[s]`` is False unless every x is finite
+    and |A x - b| <= tol (|A| |x| + |b|) + 1e-300 row by row."""
+    n_samples, n = rhs.shape
+    for s in range(n_samples):
+        good = True
+        for i in range(n):
+            if not np.isfinite(x[s, i]):
+                good = False
+        for r in range(n):
+            acc, acc_abs = 0.0, 0.0
+            for k in range(row_ptr[r], row_ptr[r + 1]):
+                e = row_entries[k]
+                prod = data[e, s] * x[s, cols[e]]
+                acc += prod
+                acc_abs += abs(prod)
+            res = acc - rhs[s, r]
+            scale = acc_abs + abs(rhs[s, r])
+            if not abs(res) <= tol * scale + 1e-300:
+                good = False
+        ok[s] = good
+
+
+def residual_ok(data: np.ndarray, x: np.ndarray, rhs: np.ndarray, row_ptr, row_entries, cols,
+                tol: float) -> np.ndarray:
+    """(S,) bool: see :func:`_residual_ok`; ``data`` (nnz, S), ``x`` and ``rhs`` (S, n)."""
+    ok = np.empty(rhs.shape[0], np.bool_)
+    _residual_ok(np.ascontiguousarray(data, np.float64), np.ascontiguousarray(x, np.float64),
+                 np.ascontiguousarray(rhs, np.float64), row_ptr, row_entries, cols, float(tol), ok)
+    return ok
+
+
+def run(prog: Program, data: np.ndarray, rhs: np.ndarray) -> np.ndarray:
+    """Solve every sample: ``data`` (nnz of the pattern, S), ``rhs`` (S, n); returns x (S, n)."""
+    rhs = np.ascontiguousarray(rhs, dtype=np.float64)
+    x = np.empty_like(rhs)
+    # numba reads this setting when it compiles (on the first call with these argument types,
+    # unless its on-disk cache has the code); it is restored at once
+    before = _numba_config.SLP_VECTORIZE
+    _numba_config.SLP_VECTORIZE = 1
+    try:
+        _run(np.ascontiguousarray(data, np.float64), rhs, x, prog.j_to_f, prog.nnz, prog.old_of_new, prog.new_of_old,
+                prog.div_ptr, prog.div_entry, prog.div_pivot, prog.upd_ptr, prog.upd_target, prog.term_ptr,
+                prog.term_a, prog.term_b, prog.fwd_ptr, prog.fwd_target, prog.fwd_term_ptr, prog.fwd_l,
+                prog.fwd_y, prog.bwd_ptr, prog.bwd_target, prog.bwd_term_ptr, prog.bwd_u, prog.bwd_y,
+                prog.piv_ptr, prog.piv, prog.piv_diag)
+    finally:
+        _numba_config.SLP_VECTORIZE = before
+    return x
