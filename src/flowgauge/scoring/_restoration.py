@@ -78,6 +78,8 @@ class Restoration:
     (n_samples, n_gen) [MW, MVAr]; ``sf_mva``, ``st_mva`` (n_samples, n_branch) [MVA];
     ``cost_per_h`` (n_samples,) [$/h]; ``violations`` family -> (n_samples,) magnitude in the
     family's unit; ``causes`` cause -> (n_samples,) bool. Values of diverged samples are NaN.
+    ``vm_pu``, ``va_deg``, ``qg_mvar``, ``sf_mva`` and ``st_mva`` are None from
+    ``restore(..., keep_state=False)``.
     """
 
     converged: np.ndarray
@@ -148,9 +150,11 @@ def _connect(scheduler: str):
         raise InputError(f"cannot connect to a Dask scheduler ({exc})", where=f"--scheduler {scheduler}") from exc
 
 
-def _run_chunks(net, arrays, powerflow, workers, scheduler, progress) -> dict[str, np.ndarray]:
+def _run_chunks(net, arrays, powerflow, workers, scheduler, progress, each=None) -> dict[str, np.ndarray]:
     """Solve every chunk and return the fields of all samples, each array allocated once and
-    filled as the chunks arrive (a chunk's own arrays are dropped once copied)."""
+    filled as the chunks arrive (a chunk's own arrays are dropped once copied). With ``each``,
+    every chunk's fields go through ``each(rows, fields)`` first, in order, and what it returns
+    is kept."""
     n = arrays[0].shape[0]
     pieces = _chunks(n, int(powerflow.get("chunk_samples", CHUNK_SAMPLES)))
     parts = [tuple(a[s] for a in arrays) for s in pieces]
@@ -159,6 +163,8 @@ def _run_chunks(net, arrays, powerflow, workers, scheduler, progress) -> dict[st
     def collect(results):
         done = 0
         for s, res in zip(pieces, results):
+            if each is not None:
+                res = each(s, res)
             for k, v in res.items():
                 if k not in out:
                     out[k] = np.empty((n,) + v.shape[1:], v.dtype)
@@ -187,30 +193,83 @@ def _run_chunks(net, arrays, powerflow, workers, scheduler, progress) -> dict[st
 
 
 def restore(net: Network, *, pd_mw, qd_mvar, pg_mw, vm_pu, profile: ScoringProfile, workers: int = 1,
-            scheduler: str | None = None, progress: Callable[[int, int], None] | None = None) -> Restoration:
+            scheduler: str | None = None, progress: Callable[[int, int], None] | None = None,
+            keep_state: bool = True) -> Restoration:
     """Run the restoration power flow for stacked samples and check every limit.
 
     ``pd_mw``, ``qd_mvar`` (n_samples, n_load) [MW, MVAr]; ``pg_mw`` (n_samples, n_gen) [MW];
     ``vm_pu`` (n_samples, n_bus) [p.u.]. ``progress(done, total)`` is called after each chunk.
+    With ``keep_state=False`` each chunk is judged as it arrives and only its verdicts and
+    restored outputs ``pg_mw`` are kept (the other restored arrays of the result are None):
+    the same verdicts, in a fraction of the memory (the scorer's way; the checks are row by
+    row, and the cost is computed over all rows at once either way).
     """
     arrays = [np.ascontiguousarray(a, dtype=float) for a in (pd_mw, qd_mvar, pg_mw, vm_pu)]
     n = arrays[0].shape[0]
+    if not keep_state and n > 0:
+        return _restore_judging_chunks(net, arrays, profile, workers, scheduler, progress)
     got = _run_chunks(net, arrays, dict(profile.powerflow), workers, scheduler, progress)
     if n == 0:
         got = {k: np.zeros((0,)) for k in _FIELDS}
     conv = got["converged"].astype(bool).reshape(n)
     # values of diverged samples are NaN: set in place in the arrays just filled (no copy)
-    state = {k: np.asarray(got[k], float) for k in ("vm_pu", "va_deg", "pg_mw", "qg_mvar", "sf_mva", "st_mva")}
+    state = {k: np.asarray(got[k], float) for k in _STATE}
     if not conv.all():
         for v in state.values():
             v[~conv] = np.nan
     iterations = got["iterations"].astype(np.int64).reshape(n)
+    return _in_blocks(net, conv, state, _judge_of(net, profile, conv, iterations, got))
+
+
+_STATE = ("vm_pu", "va_deg", "pg_mw", "qg_mvar", "sf_mva", "st_mva")
+_JUDGED = ("converged", "iterations", "violations", "causes", "failed", "switched_generators", "ratios", "severity")
+
+
+def _judge_of(net: Network, profile: ScoringProfile, conv, iterations, got: dict):
+    """``judge(rows, state rows)`` of the profile, for samples whose flags are in ``conv``,
+    ``iterations`` and ``got`` (the chunk fields)."""
+    n = conv.shape[0]
     if profile.grading is None:
-        return _in_blocks(net, conv, state, lambda b, st: _judge(net, conv[b], iterations[b], st, profile))
+        return lambda b, st: _judge(net, conv[b], iterations[b], st, profile)
     unsettled = got.get("unsettled", np.zeros(0, bool)).reshape(n)
     at_limit = got.get("at_q_limit", np.zeros((0, net.n_gen), np.int8)).reshape(n, net.n_gen)
-    return _in_blocks(net, conv, state, lambda b, st: _judge_graded(net, conv[b], unsettled[b], iterations[b], st,
-                                                                    at_limit[b], profile))
+    return lambda b, st: _judge_graded(net, conv[b], unsettled[b], iterations[b], st, at_limit[b], profile)
+
+
+def _restore_judging_chunks(net, arrays, profile, workers, scheduler, progress) -> Restoration:
+    """:func:`restore` with ``keep_state=False``: each chunk judged on arrival (in order)."""
+    parts: list[Restoration] = []
+
+    def each(rows: slice, got: dict) -> dict:
+        m = rows.stop - rows.start
+        conv = got["converged"].astype(bool).reshape(m)
+        state = {k: np.asarray(got[k], float) for k in _STATE}
+        if not conv.all():
+            for v in state.values():
+                v[~conv] = np.nan
+        iterations = got["iterations"].astype(np.int64).reshape(m)
+        parts.append(_judge_of(net, profile, conv, iterations, got)(slice(0, m), state))
+        return {"converged": conv, "pg_mw": state["pg_mw"]}
+
+    got = _run_chunks(net, arrays, dict(profile.powerflow), workers, scheduler, progress, each)
+    conv = got["converged"]
+    pg = got["pg_mw"]
+    cost = _cost(net, conv, {"pg_mw": pg if conv.all() else pg[conv]})
+    return Restoration(vm_pu=None, va_deg=None, pg_mw=pg, qg_mvar=None, sf_mva=None, st_mva=None,
+                       cost_per_h=cost, **_joined(parts, _JUDGED))
+
+
+def _joined(parts: list, names) -> dict:
+    """The fields ``names`` of consecutive partial results, concatenated."""
+    def joined(get):
+        first = get(parts[0])
+        if first is None:
+            return None
+        if isinstance(first, dict):
+            return {k: np.concatenate([get(p)[k] for p in parts]) for k in first}
+        return np.concatenate([get(p) for p in parts])
+
+    return {k: joined(lambda p, k=k: getattr(p, k)) for k in names}
 
 
 def _cost(net: Network, conv: np.ndarray, ok: dict) -> np.ndarray:
@@ -230,18 +289,7 @@ def _in_blocks(net: Network, conv: np.ndarray, state: dict, judge) -> Restoratio
     if n <= JUDGE_ROWS:
         return judge(slice(0, n), state)
     parts = [judge(b, {k: v[b] for k, v in state.items()}) for b in _chunks(n, JUDGE_ROWS)]
-
-    def joined(get):
-        first = get(parts[0])
-        if first is None:
-            return None
-        if isinstance(first, dict):
-            return {k: np.concatenate([get(p)[k] for p in parts]) for k in first}
-        return np.concatenate([get(p) for p in parts])
-
-    names = ("converged", "iterations", "violations", "causes", "failed", "switched_generators", "ratios", "severity")
-    return Restoration(**state, cost_per_h=_cost(net, conv, _converged_rows(state, conv)),
-                       **{k: joined(lambda p, k=k: getattr(p, k)) for k in names})
+    return Restoration(**state, cost_per_h=_cost(net, conv, _converged_rows(state, conv)), **_joined(parts, _JUDGED))
 
 
 def _converged_rows(state: dict, conv: np.ndarray) -> dict:

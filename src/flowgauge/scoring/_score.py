@@ -308,7 +308,7 @@ def score_arrays(net: Network, *, sample_id, pd_mw, qd_mvar, reference_cost_per_
         raw_cost = generator_cost_per_h(pg, cost_c2=net.cost_c2, cost_c1=net.cost_c1, cost_c0=net.cost_c0)
         fams = _raw_metrics(net, pd_mw, qd_mvar, pg, vm, va, qg)
         rest = restore(net, pd_mw=pd_mw, qd_mvar=qd_mvar, pg_mw=pg, vm_pu=vm, profile=prof, workers=int(workers),
-                       scheduler=scheduler, progress=progress)
+                       scheduler=scheduler, progress=progress, keep_state=False)
     else:
         raw_cost, fams, raw_ratios = _raw_in_states(groups, prof, pd_mw, qd_mvar, pg, vm, va, qg)
         rest = restore_in_states(net, groups, pd_mw=pd_mw, qd_mvar=qd_mvar, pg_mw=pg, vm_pu=vm, profile=prof,
