@@ -47,7 +47,8 @@ def flat_groups(key: np.ndarray, steps: np.ndarray, target: np.ndarray, a: np.nd
     Returns (step pointer into the groups, group targets, group pointer into the terms, a, b),
     as int32; each group's terms keep their enumeration order (the order a sparse product
     sums them in)."""
-    order = np.lexsort((target, key))  # stable: ties keep the enumeration order
+    span = int(target.max()) + 1 if target.size else 1
+    order = np.argsort(key.astype(np.int64) * span + target, kind="stable")  # ties keep the enumeration order
     k, tg = key[order], target[order]
     new = np.ones(k.size, bool)
     new[1:] = (k[1:] != k[:-1]) | (tg[1:] != tg[:-1])
@@ -131,36 +132,43 @@ def _run(data, rhs, x, j_to_f, nnz, old_of_new, new_of_old,
 
 
 @njit(cache=True, error_model="numpy", nogil=True)
-def _residual_ok(data, x, rhs, row_ptr, row_entries, cols, tol, ok):
+def _residual_ok(data, x_by_unknown, rhs_by_row, row_ptr, row_entries, cols, tol, ok):
     """Componentwise residual check of each sample (what ``StackedLU._residual_ok_numpy``
     computes, each row's sums in the same order): ``ok[s]`` is False unless every x is finite
-    and |A x - b| <= tol (|A| |x| + |b|) + 1e-300 row by row."""
-    n_samples, n = rhs.shape
+    and |A x - b| <= tol (|A| |x| + |b|) + 1e-300 row by row. ``data`` (nnz, S),
+    ``x_by_unknown`` (n, S), ``rhs_by_row`` (n, S)."""
+    n, n_samples = rhs_by_row.shape
     for s in range(n_samples):
-        good = True
-        for i in range(n):
-            if not np.isfinite(x[s, i]):
-                good = False
-        for r in range(n):
-            acc, acc_abs = 0.0, 0.0
-            for k in range(row_ptr[r], row_ptr[r + 1]):
-                e = row_entries[k]
-                prod = data[e, s] * x[s, cols[e]]
-                acc += prod
-                acc_abs += abs(prod)
-            res = acc - rhs[s, r]
-            scale = acc_abs + abs(rhs[s, r])
+        ok[s] = True
+    acc = np.empty(n_samples)
+    acc_abs = np.empty(n_samples)
+    for i in range(n):
+        for s in range(n_samples):
+            if not np.isfinite(x_by_unknown[i, s]):
+                ok[s] = False
+    for r in range(n):
+        acc[:] = 0.0
+        acc_abs[:] = 0.0
+        for k in range(row_ptr[r], row_ptr[r + 1]):
+            e = row_entries[k]
+            c = cols[e]
+            for s in range(n_samples):
+                prod = data[e, s] * x_by_unknown[c, s]
+                acc[s] += prod
+                acc_abs[s] += abs(prod)
+        for s in range(n_samples):
+            res = acc[s] - rhs_by_row[r, s]
+            scale = acc_abs[s] + abs(rhs_by_row[r, s])
             if not abs(res) <= tol * scale + 1e-300:
-                good = False
-        ok[s] = good
+                ok[s] = False
 
 
 def residual_ok(data: np.ndarray, x: np.ndarray, rhs: np.ndarray, row_ptr, row_entries, cols,
                 tol: float) -> np.ndarray:
     """(S,) bool: see :func:`_residual_ok`; ``data`` (nnz, S), ``x`` and ``rhs`` (S, n)."""
     ok = np.empty(rhs.shape[0], np.bool_)
-    _residual_ok(np.ascontiguousarray(data, np.float64), np.ascontiguousarray(x, np.float64),
-                 np.ascontiguousarray(rhs, np.float64), row_ptr, row_entries, cols, float(tol), ok)
+    _residual_ok(np.ascontiguousarray(data, np.float64), np.ascontiguousarray(np.asarray(x, np.float64).T),
+                 np.ascontiguousarray(np.asarray(rhs, np.float64).T), row_ptr, row_entries, cols, float(tol), ok)
     return ok
 
 
