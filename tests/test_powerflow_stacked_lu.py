@@ -63,3 +63,14 @@ def test_compiled_kernel_gives_the_vectorised_bits(pattern):
     assert ok.tolist() == ok_ref.tolist()
     assert x.tobytes() == x_ref.tobytes()
     assert not ok[3]
+
+
+@pytest.mark.parametrize("columns", [1, 2, 17, 18, 33, 49, 64])
+def test_dc_start_in_groups_gives_the_bits_of_one_solve(columns):
+    # SuperLU's solve (scipy.sparse.linalg.splu) of all right-hand sides at once is the reference
+    from flowgauge.powerflow._dc import _solve_columns
+    net = load_network("ieee300")
+    p = prepared(net)
+    lu = p.dc_lu()
+    b = np.asfortranarray(np.random.default_rng(columns).standard_normal((lu.shape[0], columns)))
+    assert _solve_columns(lu, b).tobytes() == lu.solve(b).tobytes() == lu.solve(np.ascontiguousarray(b)).tobytes()
