@@ -211,14 +211,19 @@ def restore(net: Network, *, pd_mw, qd_mvar, pg_mw, vm_pu, profile: ScoringProfi
     got = _run_chunks(net, arrays, dict(profile.powerflow), workers, scheduler, progress)
     if n == 0:
         got = {k: np.zeros((0,)) for k in _FIELDS}
+    conv, iterations, state = _outcome(got, n)
+    return _in_blocks(net, conv, state, _judge_of(net, profile, conv, iterations, got))
+
+
+def _outcome(got: dict, n: int):
+    """(converged (n,) bool, iterations (n,) int, restored state) from the fields of ``n``
+    samples; values of diverged samples are set to NaN in place (no copy)."""
     conv = got["converged"].astype(bool).reshape(n)
-    # values of diverged samples are NaN: set in place in the arrays just filled (no copy)
     state = {k: np.asarray(got[k], float) for k in _STATE}
     if not conv.all():
         for v in state.values():
             v[~conv] = np.nan
-    iterations = got["iterations"].astype(np.int64).reshape(n)
-    return _in_blocks(net, conv, state, _judge_of(net, profile, conv, iterations, got))
+    return conv, got["iterations"].astype(np.int64).reshape(n), state
 
 
 _STATE = ("vm_pu", "va_deg", "pg_mw", "qg_mvar", "sf_mva", "st_mva")
@@ -242,12 +247,7 @@ def _restore_judging_chunks(net, arrays, profile, workers, scheduler, progress) 
 
     def each(rows: slice, got: dict) -> dict:
         m = rows.stop - rows.start
-        conv = got["converged"].astype(bool).reshape(m)
-        state = {k: np.asarray(got[k], float) for k in _STATE}
-        if not conv.all():
-            for v in state.values():
-                v[~conv] = np.nan
-        iterations = got["iterations"].astype(np.int64).reshape(m)
+        conv, iterations, state = _outcome(got, m)
         parts.append(_judge_of(net, profile, conv, iterations, got)(slice(0, m), state))
         return {"converged": conv, "pg_mw": state["pg_mw"]}
 
