@@ -35,17 +35,22 @@ COUNTS = {"test-id": 500, "test-ood": 500, "test-edge": 200, "train": 2000, "tra
 LARGE_TRAIN = {"ieee118": 1000, "ieee300": 1000}
 # The large public systems: which splits, how many samples (committed test splits stay a few MB;
 # the training split's data is not committed, only its recipe).
-LARGE = ["activsg200", "pegase1354"]
+LARGE = ["activsg200", "pegase1354", "activsg2000"]
 # Cost per sample on this 2-core machine sets these counts: a spanning or edge sample needs a
-# maximum-loadability solve, about 2.5 s on activsg200 and pegase1354 but near a minute on the
-# 2,000- and 2,869-bus systems, and most hours of the 2,000-bus system's year are infeasible
-# with the case's fixed generator commitment (each such draw costs 20-60 s before it is
-# rejected); activsg2000 and pegase2869 have no frozen splits yet (docs/splits.md).
+# maximum-loadability solve, about 2.5 s on activsg200 and pegase1354 and 5-10 s on activsg2000
+# (plus 2-3 s for its AC-OPF), and on activsg2000 more than half of the spanning draws are
+# rejected (mostly directions whose start point has no feasible loading, each found after a
+# full loadability solve); most hours of the 2,000-bus system's year are infeasible with the
+# case's fixed generator commitment (each such draw costs 20-60 s before it is rejected), and
+# pegase2869 has no frozen splits yet (docs/splits.md).
 LARGE_COUNTS = {
     "activsg200": {"train": 300, "test-id": 150, "test-ood": 150, "test-edge": 150, "test-year": 300},
     # no test-ood: on this system 9 of 10 out-of-distribution draws were rejected (low power
     # factors have no feasible AC-OPF), each after a costly solve: 5 kept in 4 minutes
     "pegase1354": {"train": 60, "test-id": 40, "test-edge": 40},
+    # no test-ood yet: its draws keep only regimes unseen in train, on top of the spanning
+    # design's rejections (docs/splits.md)
+    "activsg2000": {"train": 40, "test-id": 60, "test-edge": 40},
 }
 SEEDS["test-year"] = 6006
 # Single-outage splits (one branch or generator out per sample) on these networks, built after
