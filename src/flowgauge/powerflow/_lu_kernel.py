@@ -1,9 +1,10 @@
 """Compiled numeric factor-and-solve for :class:`~._stacked_lu.StackedLU`'s fixed schedule.
 
 The schedule (which entries divide, which updates go where, in which order) is built once per
-sparsity pattern in numpy; this module runs it sample by sample in machine code (numba). Each
-sample's filled LU (some 80,000 entries on a 2,000-bus Jacobian) then stays in the processor's
-cache, where the vectorised numpy version streams every level of every sample through memory.
+sparsity pattern in numpy; this module runs it in machine code (numba) on a few samples at a
+time, whose filled LU (some 80,000 entries a sample on a 2,000-bus Jacobian) stays in the
+processor's cache, where the vectorised numpy version streams every level of every sample of a
+batch through memory.
 
 The results are bit for bit those of the vectorised version (``StackedLU.solve_by_entry_numpy``):
 the same IEEE operations on the same operands, each target's terms summed in the same order,
@@ -11,10 +12,10 @@ starting from 0.0 (what a sparse product does), with no fused multiply-add (numb
 ``fastmath=False``). ``tests/test_powerflow_stacked_lu.py`` checks this.
 
 A block of ``BLOCK`` = 8 samples is factorised side by side, each entry's 8 values in one cache
-line. The per-entry operations are written out lane by lane, loads before stores, and compiled
-with LLVM's straight-line (SLP) vectoriser, which numba leaves off by default: it is switched on
-while this module's kernel runs (and so compiles), and restored after (:func:`run`). Vector lanes do the same
-IEEE operations as scalar code, so this changes speed, not bits.
+line (blocks of 4 ran at half the speed, 16 at about the same). The loops over the 8 lanes are
+compiled with LLVM's straight-line (SLP) vectoriser, which numba leaves off by default: it is
+switched on while this module's kernel runs (and so compiles), and restored after (:func:`run`).
+Vector lanes do the same IEEE operations as scalar code, so this changes speed, not bits.
 """
 
 from __future__ import annotations
@@ -25,8 +26,8 @@ from numba.core import config as _numba_config
 
 __all__ = ["Program", "run", "BLOCK"]
 
-# Samples factorised side by side (the lane-by-lane helpers below are written for 8): each
-# schedule index read serves 8 samples, and their values of one entry share a cache line.
+# Samples factorised side by side (the kernel's lane loops are written for 8): each schedule
+# index read serves 8 samples, and their values of one entry share a cache line.
 BLOCK = 8
 
 

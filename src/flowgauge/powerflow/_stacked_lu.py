@@ -13,7 +13,9 @@ Here the symbolic work is done once per pattern:
   pivots and all samples (the pattern is structurally symmetric, as a power-flow Jacobian is).
 
 The numeric factorisation then uses the diagonal pivots in that order (static pivoting, as
-power-flow programs commonly do with a fixed ordering). Every solution is checked by its
+power-flow programs commonly do with a fixed ordering). It runs in the compiled kernel of
+:mod:`._lu_kernel` on a program flattened from the schedule; the level-by-level numpy version
+(:meth:`StackedLU.solve_by_entry_numpy`) is kept as its bit-for-bit reference. Every solution is checked by its
 residual; a sample whose residual is not small (a tiny pivot) is reported so the caller can
 solve it with SuperLU's partial pivoting instead.
 """
