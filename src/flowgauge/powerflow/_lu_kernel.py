@@ -31,6 +31,16 @@ __all__ = ["Program", "run", "BLOCK"]
 BLOCK = 8
 
 
+def _compiled(fn):
+    """``fn`` compiled on first use; the machine code is cached on disk (next to this file, or
+    in numba's user-wide cache folder) where a writable place exists, and kept in memory only
+    where none does (numba refuses to cache there)."""
+    try:
+        return njit(cache=True, error_model="numpy", nogil=True)(fn)
+    except RuntimeError:
+        return njit(error_model="numpy", nogil=True)(fn)
+
+
 class Program:
     """The schedule as flat integer arrays (one pass over levels, no Python objects)."""
 
@@ -59,7 +69,7 @@ def flat_groups(key: np.ndarray, steps: np.ndarray, target: np.ndarray, a: np.nd
     return (i32(step_ptr), i32(tg[g_start]), i32(np.r_[g_start, k.size]), i32(a[order]), i32(b[order]))
 
 
-@njit(cache=True, error_model="numpy", nogil=True)
+@_compiled
 def _run(data, rhs, x, j_to_f, nnz, old_of_new, new_of_old,
          div_ptr, div_entry, div_pivot, upd_ptr, upd_target, term_ptr, term_a, term_b,
          fwd_ptr, fwd_target, fwd_term_ptr, fwd_l, fwd_y,
@@ -132,7 +142,7 @@ def _run(data, rhs, x, j_to_f, nnz, old_of_new, new_of_old,
                 x[s0 + b, i] = y[new_of_old[i], b]
 
 
-@njit(cache=True, error_model="numpy", nogil=True)
+@_compiled
 def _residual_ok(data, x_by_unknown, rhs_by_row, row_ptr, row_entries, cols, tol, ok):
     """Componentwise residual check of each sample (what ``StackedLU._residual_ok_numpy``
     computes, each row's sums in the same order): ``ok[s]`` is False unless every x is finite
