@@ -48,8 +48,8 @@ LARGE_COUNTS = {
     # no test-ood: on this system 9 of 10 out-of-distribution draws were rejected (low power
     # factors have no feasible AC-OPF), each after a costly solve: 5 kept in 4 minutes
     "pegase1354": {"train": 60, "test-id": 40, "test-edge": 40},
-    # no test-ood yet: its draws keep only regimes unseen in train, on top of the spanning
-    # design's rejections (docs/splits.md)
+    # no test-ood yet: a 30-sample build had not finished its first chunk of 10 after 14
+    # minutes with 2 workers (outside draws are rejected even more often; docs/splits.md)
     "activsg2000": {"train": 40, "test-id": 60, "test-edge": 40},
 }
 SEEDS["test-year"] = 6006
