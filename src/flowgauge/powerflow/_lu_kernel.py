@@ -26,8 +26,8 @@ from numba.core import config as _numba_config
 
 __all__ = ["Program", "run", "BLOCK"]
 
-# Samples factorised side by side (the kernel's lane loops are written for 8): each schedule
-# index read serves 8 samples, and their values of one entry share a cache line.
+# Samples factorised side by side (a compile-time constant of the kernel): each schedule index
+# read serves 8 samples, and their values of one entry share a cache line.
 BLOCK = 8
 
 
@@ -42,7 +42,7 @@ def _compiled(fn):
 
 
 class Program:
-    """The schedule as flat integer arrays (one pass over levels, no Python objects)."""
+    """The schedule as flat integer arrays (steps of the factorisation, levels of the solves)."""
 
     __slots__ = ("j_to_f", "nnz", "old_of_new", "new_of_old",
                  "div_ptr", "div_entry", "div_pivot",
@@ -75,11 +75,11 @@ def _run(data, rhs, x, j_to_f, nnz, old_of_new, new_of_old,
          fwd_ptr, fwd_target, fwd_term_ptr, fwd_l, fwd_y,
          bwd_ptr, bwd_target, bwd_term_ptr, bwd_u, bwd_y, piv_ptr, piv, piv_diag):
     n_samples, n = rhs.shape
-    f = np.empty((nnz, 8))
-    y = np.empty((n, 8))
-    acc = np.empty(8)
-    for s0 in range(0, n_samples, 8):  # a block of samples at a time, side by side
-        nb = min(8, n_samples - s0)
+    f = np.empty((nnz, BLOCK))
+    y = np.empty((n, BLOCK))
+    acc = np.empty(BLOCK)
+    for s0 in range(0, n_samples, BLOCK):  # a block of samples at a time, side by side
+        nb = min(BLOCK, n_samples - s0)
         f[:] = 0.0
         y[:] = 0.0
         for e in range(j_to_f.size):
@@ -93,49 +93,49 @@ def _run(data, rhs, x, j_to_f, nnz, old_of_new, new_of_old,
         for st in range(div_ptr.size - 1):
             for p in range(div_ptr[st], div_ptr[st + 1]):
                 e, d = div_entry[p], div_pivot[p]
-                for b in range(8):
+                for b in range(BLOCK):
                     f[e, b] = f[e, b] / f[d, b]
             for g in range(upd_ptr[st], upd_ptr[st + 1]):
                 t, q0, q1 = upd_target[g], term_ptr[g], term_ptr[g + 1]
                 if q1 - q0 == 1:  # most targets have one term: its sum is 0.0 + the term
                     i, j = term_a[q0], term_b[q0]
-                    for b in range(8):
+                    for b in range(BLOCK):
                         f[t, b] = f[t, b] - (0.0 + f[i, b] * f[j, b])
                     continue
-                for b in range(8):
+                for b in range(BLOCK):
                     acc[b] = 0.0
                 for q in range(q0, q1):
                     i, j = term_a[q], term_b[q]
-                    for b in range(8):
+                    for b in range(BLOCK):
                         acc[b] += f[i, b] * f[j, b]
-                for b in range(8):
+                for b in range(BLOCK):
                     f[t, b] = f[t, b] - acc[b]
         # forward substitution, level by level (the targets of one level are distinct)
         for g in range(fwd_ptr[fwd_ptr.size - 1]):
             t, q0, q1 = fwd_target[g], fwd_term_ptr[g], fwd_term_ptr[g + 1]
-            for b in range(8):
+            for b in range(BLOCK):
                 acc[b] = 0.0
             for q in range(q0, q1):
                 i, j = fwd_l[q], fwd_y[q]
-                for b in range(8):
+                for b in range(BLOCK):
                     acc[b] += f[i, b] * y[j, b]
-            for b in range(8):
+            for b in range(BLOCK):
                 y[t, b] = y[t, b] - acc[b]
         # backward substitution: per level (last first), the updates, then the divisions
         for lev in range(bwd_ptr.size - 1):
             for g in range(bwd_ptr[lev], bwd_ptr[lev + 1]):
                 t, q0, q1 = bwd_target[g], bwd_term_ptr[g], bwd_term_ptr[g + 1]
-                for b in range(8):
+                for b in range(BLOCK):
                     acc[b] = 0.0
                 for q in range(q0, q1):
                     i, j = bwd_u[q], bwd_y[q]
-                    for b in range(8):
+                    for b in range(BLOCK):
                         acc[b] += f[i, b] * y[j, b]
-                for b in range(8):
+                for b in range(BLOCK):
                     y[t, b] = y[t, b] - acc[b]
             for p in range(piv_ptr[lev], piv_ptr[lev + 1]):
                 i, d = piv[p], piv_diag[p]
-                for b in range(8):
+                for b in range(BLOCK):
                     y[i, b] = y[i, b] / f[d, b]
         for i in range(n):
             for b in range(nb):
