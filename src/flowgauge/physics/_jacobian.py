@@ -18,9 +18,55 @@ from __future__ import annotations
 import numpy as np
 import scipy.sparse as sp
 
+from .._compiled import compiled, complex_product
 from ._admittance import Admittance
 
 __all__ = ["JacobianPattern", "powerflow_jacobian"]
+
+
+# numpy computes ``x * t`` as ``t * x`` in t's memory when t is a temporary array of at least
+# this many bytes (its "temporary elision"); for a complex product the operand order changes
+# the imaginary part's rounding (:func:`.._compiled.complex_product`)
+_ELIDE_BYTES = 256 * 1024
+
+
+@compiled
+def _fill(vm, e, i_bus, y, rows, cols, is_diag, out_pos, elided, out):
+    """The Jacobian values of :meth:`JacobianPattern.values_by_entry_numpy`, entry by entry,
+    with numpy's operations in numpy's order and rounding. ``elided``: the diagonal terms'
+    temporaries (``v[d]``, ``e[d]``, one per diagonal and sample) are at least
+    :data:`_ELIDE_BYTES`, so numpy multiplies them with their operands swapped."""
+    n_s = vm.shape[1]
+    for k in range(rows.size):  # loop over Ybus entries; each fills up to four Jacobian entries
+        r, c = rows[k], cols[k]
+        for s in range(n_s):
+            ev, ec = e[r, s], e[c, s]
+            vr, vi = complex_product(vm[r, s], 0.0, ev.real, ev.imag)  # v = vm e
+            pr, pi = complex_product(y[k].real, y[k].imag, ec.real, ec.imag)  # y e[c]
+            mr, mi = complex_product(vr, vi, pr, -pi)  # dvm = v[r] conj(y e[c])
+            ar, ai = complex_product(mr, mi, vm[c, s], 0.0)  # dva = dvm vm[c]
+            ar, ai = complex_product(ar, ai, -0.0, -1.0)  # dva *= -1j
+            if is_diag[k]:
+                cr, ci = i_bus[r, s].real, -i_bus[r, s].imag  # conj(I)
+                if elided:  # 1j * v[d] * ci, then ci * e[d]
+                    tr, ti = complex_product(vr, vi, 0.0, 1.0)
+                else:
+                    tr, ti = complex_product(0.0, 1.0, vr, vi)
+                wr, wi = complex_product(tr, ti, cr, ci)
+                ar, ai = ar + wr, ai + wi
+                if elided:
+                    wr, wi = complex_product(ev.real, ev.imag, cr, ci)
+                else:
+                    wr, wi = complex_product(cr, ci, ev.real, ev.imag)
+                mr, mi = mr + wr, mi + wi
+            if out_pos[0, k] >= 0:
+                out[out_pos[0, k], s] = ar
+            if out_pos[1, k] >= 0:
+                out[out_pos[1, k], s] = mr
+            if out_pos[2, k] >= 0:
+                out[out_pos[2, k], s] = ai
+            if out_pos[3, k] >= 0:
+                out[out_pos[3, k], s] = mi
 
 
 class JacobianPattern:
@@ -72,6 +118,12 @@ class JacobianPattern:
         self.nnz = int(self.src.size)
         part, idx = self.src // nnz, self.src % nnz
         self._parts = [(np.flatnonzero(part == k), idx[part == k]) for k in range(4)]
+        # for the compiled fill: where each Ybus entry's four values go (-1: not in the Jacobian)
+        self._out_pos = np.full((4, nnz), -1, np.int32)
+        for k, (pos, i) in enumerate(self._parts):
+            self._out_pos[k, i] = pos
+        self._is_diag = rows == cols
+        self._rows32, self._cols32 = rows.astype(np.int32), cols.astype(np.int32)
 
     def values(self, vm: np.ndarray, e: np.ndarray, i_bus: np.ndarray) -> np.ndarray:
         """Jacobian data for every sample, shape (n_samples, nnz), in CSC order.
@@ -84,7 +136,18 @@ class JacobianPattern:
 
     def values_by_entry(self, vm: np.ndarray, e: np.ndarray, i_bus: np.ndarray) -> np.ndarray:
         """As :meth:`values`, in the transposed layout the solvers use: inputs shape
-        (n_bus, n_samples), result (nnz, n_samples)."""
+        (n_bus, n_samples), result (nnz, n_samples). Compiled (:func:`_fill`); bit for bit what
+        :meth:`values_by_entry_numpy` gives."""
+        vm = np.ascontiguousarray(vm, np.float64)
+        e = np.ascontiguousarray(e, np.complex128)
+        i_bus = np.ascontiguousarray(i_bus, np.complex128)
+        out = np.empty((self.nnz, vm.shape[1]))
+        elided = self.diag.size * vm.shape[1] * 16 >= _ELIDE_BYTES
+        _fill(vm, e, i_bus, self.y, self._rows32, self._cols32, self._is_diag, self._out_pos, elided, out)
+        return out
+
+    def values_by_entry_numpy(self, vm: np.ndarray, e: np.ndarray, i_bus: np.ndarray) -> np.ndarray:
+        """:meth:`values_by_entry` in numpy (the reference the compiled fill is checked against)."""
         v = vm * e
         dvm = v[self.rows] * np.conj(self.y[:, None] * e[self.cols])
         dva = dvm * vm[self.cols]

@@ -187,8 +187,20 @@ class StackedLU:
         d_order = np.argsort(div_key, kind="stable")
         prog.div_ptr = i32(np.searchsorted(div_key[d_order], np.r_[steps, n * n_lev]))
         prog.div_entry, prog.div_pivot = i32(low[d_order]), i32(self.diag[fc[low]][d_order])
-        prog.upd_ptr, prog.upd_target, prog.term_ptr, prog.term_a, prog.term_b = _lu_kernel.flat_groups(
-            upd_key, steps, t, a, b)
+        # the updates in the kernel's order: by step, then by L entry (i, k) and U entry (k, j)
+        # (the enumeration order, so each target's terms keep their order); each goes to its
+        # target, or, where the target has more terms in the step, to the sum of its column
+        u_order = np.argsort(upd_key, kind="stable")
+        by_pair = np.argsort(upd_key * self.nnz + t)
+        same = (upd_key[by_pair][1:] == upd_key[by_pair][:-1]) & (t[by_pair][1:] == t[by_pair][:-1])
+        several = np.zeros(t.size, bool)
+        several[by_pair[1:][same]] = True
+        several[by_pair[:-1][same]] = True
+        prog.upd_to = i32(np.where(several, -1 - fc[t], t)[u_order])
+        prog.sum_ptr, prog.sum_target = _lu_kernel.flat_groups(
+            upd_key[several], steps, t[several], a[several], b[several])[:2]
+        prog.col, prog.diag = i32(fc), i32(self.diag)
+        prog.row_end = i32(np.searchsorted(fr, np.arange(n), side="right"))
         # forward substitution level by level: y[i] -= sum of L[i, k] y[k] over the level's k
         levels = np.arange(n_lev)
         prog.fwd_ptr, prog.fwd_target, prog.fwd_term_ptr, prog.fwd_l, prog.fwd_y = _lu_kernel.flat_groups(

@@ -1,0 +1,48 @@
+"""Helpers for the project's compiled loops (numba): the compile decorator and numpy's complex
+product written out.
+
+Compiled loops here must give the bits of the numpy code they replace. numpy (2.x on x86-64
+with FMA) multiplies complex numbers a b as
+
+    re = fma(a.re, b.re, -(a.im b.im)),    im = fma(a.re, b.im, a.im b.re)
+
+(one rounding for the fused multiply-add), and a real operand takes part as (x, +0.0).
+:func:`complex_product` is that formula; ``tests/test_physics_jacobian_compiled.py`` checks it
+against exact rational arithmetic, and the compiled Jacobian against numpy's, bit for bit.
+"""
+
+from __future__ import annotations
+
+from numba import njit
+from numba.core import types
+from numba.extending import intrinsic
+
+__all__ = ["compiled", "fma", "complex_product"]
+
+
+def compiled(fn):
+    """``fn`` compiled on first use; the machine code is cached on disk (next to its module, or
+    in numba's user-wide cache folder) where a writable place exists, and kept in memory only
+    where none does (numba refuses to cache there)."""
+    try:
+        return njit(cache=True, error_model="numpy", nogil=True)(fn)
+    except RuntimeError:
+        return njit(error_model="numpy", nogil=True)(fn)
+
+
+@intrinsic
+def fma(typingctx, a, b, c):
+    """a b + c with one rounding (LLVM's fma: the processor's instruction, or an exact library
+    routine where there is none)."""
+    sig = types.float64(types.float64, types.float64, types.float64)
+
+    def codegen(context, builder, signature, args):
+        return builder.fma(*args)
+
+    return sig, codegen
+
+
+@njit(inline="always")
+def complex_product(ar, ai, br, bi):
+    """(re, im) of (ar + j ai)(br + j bi), rounded as numpy rounds it (module docstring)."""
+    return fma(ar, br, -(ai * bi)), fma(ar, bi, ai * br)
