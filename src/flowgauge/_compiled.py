@@ -7,7 +7,7 @@ with FMA) multiplies complex numbers a b as
     re = fma(a.re, b.re, -(a.im b.im)),    im = fma(a.re, b.im, a.im b.re)
 
 (one rounding for the fused multiply-add), and a real operand takes part as (x, +0.0).
-:func:`complex_product` is that formula; ``tests/test_physics_jacobian_compiled.py`` checks it
+:func:`complex_product` is that formula; ``tests/test_compiled_bits.py`` checks it
 against exact rational arithmetic, and the compiled Jacobian against numpy's, bit for bit.
 """
 

@@ -17,6 +17,7 @@ import numpy as np
 import scipy.sparse as sp
 import scipy.sparse.linalg as spla
 
+from .._compiled import compiled, complex_product
 from ..physics import JacobianPattern
 from ._stacked_lu import StackedLU, fill_reducing_order
 from ._status import CONVERGED, DIVERGED, MAX_ITERATIONS, SINGULAR_JACOBIAN, STATUS_NAMES
@@ -122,12 +123,67 @@ def _solve_stacked(pat: JacobianPattern, data: np.ndarray, f: np.ndarray) -> tup
 LINEAR_SOLVERS = {"stacked": _solve_stacked, "block": _solve_block, "loop": _solve_loop}
 
 
-def _mismatch(ybus: sp.csr_matrix, vm, e, sbus, pvpq, pq):
-    """Mismatch vector [dP(pvpq), dQ(pq)] (S, n) and the bus currents (S, n_bus) [p.u.]."""
+def _mismatch_numpy(ybus: sp.csr_matrix, vm, va, sbus, pvpq, pq):
+    """Mismatch vector [dP(pvpq), dQ(pq)] (S, n), the bus currents (S, n_bus) [p.u.] and
+    ``e = exp(j va)``, in numpy (the reference :func:`_mismatch` is checked against)."""
+    e = np.exp(1j * va)
     v = vm * e
     i_bus = (ybus @ v.T).T
     mis = v * np.conj(i_bus) - sbus
-    return np.concatenate([mis.real[:, pvpq], mis.imag[:, pq]], axis=1), i_bus
+    return np.concatenate([mis.real[:, pvpq], mis.imag[:, pq]], axis=1), i_bus, e
+
+
+# numpy computes ``x * t`` as ``t * x`` in t's memory when t is a temporary array of at least
+# this many bytes ("temporary elision"), which changes a complex product's rounding
+_ELIDE_BYTES = 256 * 1024
+
+
+def _mismatch(ybus: sp.csr_matrix, vm, va, sbus, pvpq, pq):
+    """:func:`_mismatch_numpy` compiled (:func:`_mismatch_rows`), bit for bit."""
+    with np.errstate(all="ignore"):
+        y = ybus if ybus.format == "csr" else sp.csr_matrix(ybus)
+        vm, va = np.ascontiguousarray(vm, np.float64), np.ascontiguousarray(va, np.float64)
+        n_s, n_bus = vm.shape
+        f = np.empty((n_s, pvpq.size + pq.size))
+        i_bus = np.empty((n_s, n_bus), np.complex128)
+        e = np.empty((n_s, n_bus), np.complex128)
+        _mismatch_rows(vm, va, np.ascontiguousarray(sbus, np.complex128), y.indptr, y.indices, y.data,
+                       pvpq, pq, n_s * n_bus * 16 >= _ELIDE_BYTES, f, i_bus, e)
+    return f, i_bus, e
+
+
+@compiled
+def _mismatch_rows(vm, va, sbus, indptr, indices, ydata, pvpq, pq, swapped, f, i_bus, e):
+    """Per sample, numpy's operations of :func:`_mismatch_numpy` in numpy's rounding:
+    ``exp(j va)`` as (cos va, sin va); ``v = vm e`` and ``v conj(I)`` as numpy's complex
+    product (:mod:`.._compiled`), the latter with its operands swapped where numpy elides the
+    temporary ``conj(I)`` (``swapped``); ``I = Ybus v`` as SciPy's sparse product (each row's
+    terms in stored order, summed from 0, the product written out without fused operations)."""
+    n_s, n_bus = vm.shape
+    v = np.empty(n_bus, np.complex128)
+    mis = np.empty(n_bus, np.complex128)
+    for s in range(n_s):
+        for i in range(n_bus):
+            c, sn = np.cos(va[s, i]), np.sin(va[s, i])
+            e[s, i] = complex(c, sn)
+            vr, vi = complex_product(vm[s, i], 0.0, c, sn)
+            v[i] = complex(vr, vi)
+        for i in range(n_bus):
+            yr, yi = 0.0, 0.0
+            for jj in range(indptr[i], indptr[i + 1]):
+                a, x = ydata[jj], v[indices[jj]]
+                yr = yr + (a.real * x.real - a.imag * x.imag)
+                yi = yi + (a.real * x.imag + a.imag * x.real)
+            i_bus[s, i] = complex(yr, yi)
+            if swapped:
+                mr, mi = complex_product(yr, -yi, v[i].real, v[i].imag)
+            else:
+                mr, mi = complex_product(v[i].real, v[i].imag, yr, -yi)
+            mis[i] = complex(mr - sbus[s, i].real, mi - sbus[s, i].imag)
+        for j in range(pvpq.size):
+            f[s, j] = mis[pvpq[j]].real
+        for j in range(pq.size):
+            f[s, pvpq.size + j] = mis[pq[j]].imag
 
 
 def _hold_voltage(pat: JacobianPattern, hold: np.ndarray, data: np.ndarray, f: np.ndarray) -> None:
@@ -136,9 +192,36 @@ def _hold_voltage(pat: JacobianPattern, hold: np.ndarray, data: np.ndarray, f: n
     magnitude (a PV bus written in the pattern of a PQ bus). ``hold`` (S, n_pq) bool by
     reactive row; ``data`` (nnz, S); ``f`` (S, n)."""
     q_entry, rows, ident = _cached(pat, "hold", lambda: _reactive_entries(pat))
-    held = hold[:, rows].T  # (n_q_entries, S)
-    data[q_entry] = np.where(held, ident[:, None], data[q_entry])
-    f[:, pat.pvpq.size:][hold] = 0.0
+    _hold_rows(q_entry, rows, ident, np.ascontiguousarray(hold), data, f, pat.pvpq.size)
+
+
+@compiled
+def _hold_rows(q_entry, rows, ident, hold, data, f, npvpq):
+    """:func:`_hold_voltage`'s writes, in place: for each entry of a held reactive row its
+    identity value, and a zero mismatch."""
+    n_s = hold.shape[0]
+    for j in range(q_entry.size):
+        r, e = rows[j], q_entry[j]
+        for s in range(n_s):
+            if hold[s, r]:
+                data[e, s] = ident[j]
+    for s in range(n_s):
+        for r in range(hold.shape[1]):
+            if hold[s, r]:
+                f[s, npvpq + r] = 0.0
+
+
+@compiled
+def _take_steps(va, vm, active, pvpq, pq, dx):
+    """``va[active, pvpq] -= dx[:, :len(pvpq)]`` and ``vm[active, pq] -= dx[:, len(pvpq):]``
+    in place (each value one subtraction, as numpy's)."""
+    npvpq = pvpq.size
+    for s in range(active.size):
+        a = active[s]
+        for j in range(npvpq):
+            va[a, pvpq[j]] = va[a, pvpq[j]] - dx[s, j]
+        for j in range(pq.size):
+            vm[a, pq[j]] = vm[a, pq[j]] - dx[s, npvpq + j]
 
 
 def _reactive_entries(pat: JacobianPattern):
@@ -178,8 +261,7 @@ def newton(pat: JacobianPattern, ybus: sp.csr_matrix, vm: np.ndarray, va: np.nda
     vm_a, va_a, sbus_a = vm, va, sbus
     with np.errstate(all="ignore"):
         for it in range(max_iter + 1):
-            e = np.exp(1j * va_a)
-            f, i_bus = _mismatch(ybus, vm_a, e, sbus_a, pvpq, pq)
+            f, i_bus, e = _mismatch(ybus, vm_a, va_a, sbus_a, pvpq, pq)
             if hold_a is not None:
                 f[:, npvpq:][hold_a] = 0.0
             norm = np.abs(f).max(axis=1, initial=0.0)
@@ -208,14 +290,10 @@ def newton(pat: JacobianPattern, ybus: sp.csr_matrix, vm: np.ndarray, va: np.nda
                     hold_k = hold_k[~singular]
                 if active.size == 0:
                     break
+            _take_steps(va, vm, active, pvpq, pq, np.ascontiguousarray(dx))
             if active.size == n_s:
-                va[:, pvpq] -= dx[:, :npvpq]
-                vm[:, pq] -= dx[:, npvpq:]
                 vm_a, va_a, sbus_a = vm, va, sbus
             else:
-                rows = active[:, None]
-                va[rows, pvpq] -= dx[:, :npvpq]
-                vm[rows, pq] -= dx[:, npvpq:]
                 vm_a, va_a, sbus_a = vm[active], va[active], sbus[active]
             hold_a = hold_k
     status = np.array(STATUS_NAMES)[code]

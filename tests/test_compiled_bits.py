@@ -1,12 +1,13 @@
-"""The compiled Jacobian fill gives numpy's bits, and its complex product rounds as the formula says.
+"""The compiled Jacobian fill and Newton mismatch give numpy's bits; their complex product rounds as
+the formula says.
 
-The power-flow scores of the frozen board depend on the Jacobian's last bits, so the compiled
-fill (``JacobianPattern.values_by_entry``) must give exactly what the numpy expression it
-replaced gives (``values_by_entry_numpy``), for sample counts on both sides of numpy's
-temporary-elision size (where numpy swaps a product's operands). The complex product is
-checked against exact rational arithmetic: re = fma(ar, br, -(ai bi)), im = fma(ar, bi, ai br),
-each fma rounded once (IEEE 754 fused multiply-add; the rounding of an exact rational to the
-nearest double is Python's ``float(Fraction)``).
+The power-flow scores of the frozen board depend on the last bits of the Jacobian and the
+mismatch, so the compiled loops (``JacobianPattern.values_by_entry``, ``powerflow._newton._mismatch``)
+must give exactly what the numpy expressions they replaced give (``values_by_entry_numpy``,
+``_mismatch_numpy``), for sample counts on both sides of numpy's temporary-elision size (where
+numpy swaps a product's operands). The complex product is checked against exact rational
+arithmetic: re = fma(ar, br, -(ai bi)), im = fma(ar, bi, ai br), each fma rounded once (IEEE 754
+fused multiply-add; an exact rational is rounded to the nearest double by ``float(Fraction)``).
 """
 
 from __future__ import annotations
@@ -61,3 +62,23 @@ def test_compiled_fill_gives_numpy_bits(name):
         got = pat.values_by_entry(vm, e, i_bus)
         ref = pat.values_by_entry_numpy(vm, e, i_bus)
         assert got.tobytes() == ref.tobytes(), f"{name}, {s} samples"
+
+
+@pytest.mark.parametrize("name", ["ieee14", "ieee118"])
+def test_compiled_mismatch_gives_numpy_bits(name):
+    # the Newton loop's mismatch, bus currents and exp(j va), compiled (powerflow._newton)
+    from flowgauge.powerflow._newton import _ELIDE_BYTES as elide, _mismatch, _mismatch_numpy
+
+    net = load_network(name)
+    p = prepared(net)
+    pat = p.pattern(p.pv, p.pq)
+    edge = elide // (16 * net.n_bus)  # numpy swaps the product's operands from here on
+    rng = np.random.default_rng(5)
+    for s in sorted({1, 3, 8, edge, edge + 1, edge + 7}):
+        vm = rng.uniform(0.9, 1.1, (s, net.n_bus))
+        va = rng.uniform(-0.7, 0.7, (s, net.n_bus))
+        sbus = rng.standard_normal((s, net.n_bus)) + 1j * rng.standard_normal((s, net.n_bus))
+        got = _mismatch(p.adm.ybus, vm, va, sbus, pat.pvpq, pat.pq)
+        ref = _mismatch_numpy(p.adm.ybus, vm, va, sbus, pat.pvpq, pat.pq)
+        for a, b, what in zip(got, ref, ("mismatch", "bus currents", "exp(j va)")):
+            assert np.ascontiguousarray(a).tobytes() == np.ascontiguousarray(b).tobytes(), f"{name}, {s} samples: {what}"
