@@ -74,3 +74,32 @@ def test_dc_start_in_groups_gives_the_bits_of_one_solve(columns):
     lu = p.dc_lu()
     b = np.asfortranarray(np.random.default_rng(columns).standard_normal((lu.shape[0], columns)))
     assert _solve_columns(lu, b).tobytes() == lu.solve(b).tobytes() == lu.solve(np.ascontiguousarray(b)).tobytes()
+
+
+def test_filled_pattern_is_the_fill_of_symbolic_elimination(pattern):
+    # the definition (common practice): eliminating pivots in index order, (i, j) fills when
+    # some k < min(i, j) has (i, k) and (j, k); computed here as the fixed point of sparse
+    # products over the permuted pattern, and compared with the compiled tree walk
+    import scipy.sparse as sp
+
+    from flowgauge.powerflow._stacked_lu import _filled_lower
+
+    net, p, pat = pattern
+    lu = stacked_lu(pat)
+    jcol = np.repeat(np.arange(pat.n), np.diff(pat.indptr))
+    r, c = lu.new_of_old[pat.indices], lu.new_of_old[jcol]
+    lo, hi = np.maximum(r, c), np.minimum(r, c)
+    keep = lo != hi
+    low = sp.csr_matrix((np.ones(int(keep.sum())), (lo[keep], hi[keep])), shape=(pat.n, pat.n))
+    low.data[:] = 1.0
+    while True:
+        grown = low + sp.tril(low @ low.T, -1)
+        grown.data[:] = 1.0
+        if grown.nnz == low.nnz:
+            break
+        low = grown
+    ref = low.tocoo()
+    got_r, got_c = _filled_lower(pat.n, r, c)
+    assert got_r.size == ref.nnz
+    assert np.array_equal(np.sort(got_r * pat.n + got_c), np.sort(ref.row.astype(np.int64) * pat.n + ref.col))
+    assert np.all(got_r > got_c)

@@ -30,7 +30,7 @@ from numba.core import config as _numba_config
 
 from .._compiled import compiled as _compiled
 
-__all__ = ["Program", "run", "BLOCK"]
+__all__ = ["Program", "run", "row_steps", "filled_rows", "BLOCK"]
 
 # Samples factorised side by side (a compile-time constant of the kernel): each schedule index
 # read serves 8 samples, and their values of one entry share a cache line.
@@ -63,6 +63,130 @@ def flat_groups(key: np.ndarray, steps: np.ndarray, target: np.ndarray, a: np.nd
     i32 = lambda v: np.ascontiguousarray(v, np.int32)  # noqa: E731
     step_ptr = np.searchsorted(k[g_start], np.r_[steps, steps[-1] + 1 if steps.size else 0])
     return (i32(step_ptr), i32(tg[g_start]), i32(np.r_[g_start, k.size]), i32(a[order]), i32(b[order]))
+
+
+@_compiled
+def filled_rows(n, ptr, cols):
+    """The strict lower triangle of the filled pattern (see ``_stacked_lu._filled_lower``):
+    ``cols[ptr[i]:ptr[i + 1]]`` the matrix's entries (i, k), k < i. Returns (row, col) arrays."""
+    parent = np.full(n, -1, np.int64)
+    flag = np.full(n, -1, np.int64)
+    cap = max(16, 2 * cols.size)
+    out_r = np.empty(cap, np.int64)
+    out_c = np.empty(cap, np.int64)
+    m = 0
+    for i in range(n):
+        flag[i] = i
+        for p in range(ptr[i], ptr[i + 1]):
+            k = cols[p]
+            while flag[k] != i:  # up the elimination tree until a pivot already met in row i
+                if parent[k] == -1:
+                    parent[k] = i
+                if m == cap:
+                    cap *= 2
+                    grown_r = np.empty(cap, np.int64)
+                    grown_c = np.empty(cap, np.int64)
+                    grown_r[:m] = out_r[:m]
+                    grown_c[:m] = out_c[:m]
+                    out_r, out_c = grown_r, grown_c
+                out_r[m] = i
+                out_c[m] = k
+                m += 1
+                flag[k] = i
+                k = parent[k]
+    return out_r[:m].copy(), out_c[:m].copy()
+
+
+@_compiled
+def row_steps(n, row_ptr, col, diag):
+    """The factorisation's program from the filled pattern (entries of row i at
+    ``row_ptr[i]:row_ptr[i + 1]``, columns increasing, ``col`` their columns, ``diag[i]`` the
+    position of (i, i)). Returns ``(level, div_ptr, div_entry, div_pivot, upd_to, sum_ptr,
+    sum_target, ok)``:
+
+    * ``level[i]``: 0 for a pivot without L entries, else 1 + the largest level of the pivots k
+      of its L entries (i, k);
+    * the steps, row by row and within a row by level: ``div_entry`` the step's L entries in
+      increasing position, ``div_pivot`` their pivots' positions, ``div_ptr`` the steps' bounds;
+    * ``upd_to``: per update (i, k, j), in the kernel's order (step, L entry, U's row k), the
+      target position, or -1 - j where the target (i, j) has more than one term in the step;
+      ``sum_target`` those targets by step (``sum_ptr``), in increasing position;
+    * ``ok``: False if an update's target is not in the filled pattern."""
+    n_low = 0
+    n_upd = 0
+    level = np.zeros(n, np.int64)
+    for i in range(n):  # rows in order: the pivots of row i's L entries are finished
+        lv = 0
+        for e in range(row_ptr[i], diag[i]):
+            k = col[e]
+            lv = max(lv, level[k] + 1)
+            n_upd += row_ptr[k + 1] - diag[k] - 1
+        level[i] = lv
+        n_low += diag[i] - row_ptr[i]
+    div_ptr = np.empty(n_low + 1, np.int32)
+    div_entry = np.empty(n_low, np.int32)
+    div_pivot = np.empty(n_low, np.int32)
+    upd_to = np.empty(n_upd, np.int32)
+    sum_ptr = np.empty(n_low + 1, np.int32)
+    sum_target = np.empty(n_upd, np.int32)
+    pos = np.full(n, -1, np.int64)  # position of (i, j) in row i, by column j
+    count = np.zeros(n, np.int64)  # terms of target (i, j) in the current step
+    span = row_ptr[n] + 1
+    ok = True
+    n_steps, nd, m, ns = 0, 0, 0, 0
+    div_ptr[0] = 0
+    sum_ptr[0] = 0
+    for i in range(n):
+        r0, r1, d0 = row_ptr[i], row_ptr[i + 1], diag[i]
+        for e in range(r0, r1):
+            pos[col[e]] = e
+        keys = np.empty(d0 - r0, np.int64)
+        for e in range(r0, d0):
+            keys[e - r0] = level[col[e]] * span + e
+        keys.sort()  # by level, then position
+        g = 0
+        while g < keys.size:  # one step: the L entries of one level
+            lv = keys[g] // span
+            h = g
+            while h < keys.size and keys[h] // span == lv:
+                h += 1
+            for u in range(g, h):
+                e = keys[u] % span
+                div_entry[nd] = e
+                div_pivot[nd] = diag[col[e]]
+                nd += 1
+                k = col[e]
+                for q in range(diag[k] + 1, row_ptr[k + 1]):
+                    if pos[col[q]] < 0:
+                        ok = False
+                    count[col[q]] += 1
+            first = ns
+            for u in range(g, h):
+                k = col[keys[u] % span]
+                for q in range(diag[k] + 1, row_ptr[k + 1]):
+                    j = col[q]
+                    if count[j] > 1:
+                        upd_to[m] = -1 - j
+                    else:
+                        upd_to[m] = pos[j]
+                    m += 1
+            for u in range(g, h):
+                k = col[keys[u] % span]
+                for q in range(diag[k] + 1, row_ptr[k + 1]):
+                    j = col[q]
+                    if count[j] > 1:
+                        sum_target[ns] = pos[j]
+                        ns += 1
+                    count[j] = 0
+            sum_target[first:ns].sort()
+            n_steps += 1
+            div_ptr[n_steps] = nd
+            sum_ptr[n_steps] = ns
+            g = h
+        for e in range(r0, r1):
+            pos[col[e]] = -1
+    return (level, div_ptr[:n_steps + 1].copy(), div_entry, div_pivot, upd_to, sum_ptr[:n_steps + 1].copy(),
+            sum_target[:ns].copy(), ok)
 
 
 @_compiled

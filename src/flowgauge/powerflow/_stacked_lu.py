@@ -87,21 +87,18 @@ def fill_reducing_order(pat: JacobianPattern, seed: int = 0) -> np.ndarray:
     return np.argsort(lu.perm_c).astype(np.int64)
 
 
-def _filled_lower(n: int, rows: np.ndarray, cols: np.ndarray) -> sp.coo_matrix:
+def _filled_lower(n: int, rows: np.ndarray, cols: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Strict lower triangle of the filled pattern of a structurally symmetric matrix with
     entries (rows, cols), eliminated in index order: (i, j) fills when some k < min(i, j) has
-    (i, k) and (j, k). Computed as a fixed point of sparse products; each round adds the
-    fill caused by the entries found so far."""
+    (i, k) and (j, k). Returns its entries (row, col), in no particular order. Row i's entries
+    are the pivots met walking up the elimination tree from each k < i with (i, k) in the
+    matrix (compiled: :func:`._lu_kernel.filled_rows`)."""
     lo, hi = np.maximum(rows, cols), np.minimum(rows, cols)
     keep = lo != hi
-    low = sp.csr_matrix((np.ones(int(keep.sum())), (lo[keep], hi[keep])), shape=(n, n))
-    low.data[:] = 1.0
-    while True:
-        grown = low + sp.tril(low @ low.T, -1)
-        grown.data[:] = 1.0
-        if grown.nnz == low.nnz:
-            return low.tocoo()
-        low = grown
+    lo, hi = lo[keep], hi[keep]
+    order = np.argsort(lo, kind="stable")
+    ptr = np.r_[0, np.cumsum(np.bincount(lo, minlength=n))].astype(np.int64)
+    return _lu_kernel.filled_rows(n, ptr, np.ascontiguousarray(hi[order], np.int64))
 
 
 class StackedLU:
@@ -116,9 +113,9 @@ class StackedLU:
         self.new_of_old = np.argsort(self.old_of_new)
         jcol = np.repeat(np.arange(n), np.diff(pat.indptr))
         r, c = self.new_of_old[pat.indices], self.new_of_old[jcol]
-        lower = _filled_lower(n, r, c)
-        rows = np.r_[lower.row, lower.col, np.arange(n)]
-        cols = np.r_[lower.col, lower.row, np.arange(n)]
+        low_r, low_c = _filled_lower(n, r, c)
+        rows = np.r_[low_r, low_c, np.arange(n)]
+        cols = np.r_[low_c, low_r, np.arange(n)]
         keys = np.sort(rows * n + cols)
         self.nnz = keys.size
         self._find = lambda r, c: np.searchsorted(keys, r * n + c)
@@ -175,32 +172,24 @@ class StackedLU:
         row level by level. An update of row i at level l reads L entries of row i, divided
         earlier in the row at level l, and U entries of earlier rows, final."""
         n = self.n
-        low, upp, level, a, b, t = self._basics(fr, fc)
-        n_lev = self.n_levels = int(level.max()) + 1
         prog = _lu_kernel.Program()
         i32 = lambda v: np.ascontiguousarray(v, np.int32)  # noqa: E731
         prog.j_to_f, prog.nnz = i32(self.j_to_f), int(self.nnz)
         prog.old_of_new, prog.new_of_old = i32(self.old_of_new), i32(self.new_of_old)
-        div_key = fr[low] * n_lev + level[fc[low]]
-        upd_key = fr[t] * n_lev + level[fc[a]]
-        steps = np.unique(div_key)  # every update's step has its division: the L entry (i, k)
-        d_order = np.argsort(div_key, kind="stable")
-        prog.div_ptr = i32(np.searchsorted(div_key[d_order], np.r_[steps, n * n_lev]))
-        prog.div_entry, prog.div_pivot = i32(low[d_order]), i32(self.diag[fc[low]][d_order])
-        # the updates in the kernel's order: by step, then by L entry (i, k) and U entry (k, j)
-        # (the enumeration order, so each target's terms keep their order); each goes to its
-        # target, or, where the target has more terms in the step, to the sum of its column
-        u_order = np.argsort(upd_key, kind="stable")
-        by_pair = np.argsort(upd_key * self.nnz + t)
-        same = (upd_key[by_pair][1:] == upd_key[by_pair][:-1]) & (t[by_pair][1:] == t[by_pair][:-1])
-        several = np.zeros(t.size, bool)
-        several[by_pair[1:][same]] = True
-        several[by_pair[:-1][same]] = True
-        prog.upd_to = i32(np.where(several, -1 - fc[t], t)[u_order])
-        prog.sum_ptr, prog.sum_target = _lu_kernel.flat_groups(
-            upd_key[several], steps, t[several], a[several], b[several])[:2]
         prog.col, prog.diag = i32(fc), i32(self.diag)
-        prog.row_end = i32(np.searchsorted(fr, np.arange(n), side="right"))
+        row_ptr = i32(np.searchsorted(fr, np.arange(n + 1)))
+        prog.row_end = row_ptr[1:].copy()
+        # the steps (row by row, level by level), their divisions, the updates in the kernel's
+        # order (step, L entry (i, k), U entry (k, j): each target's terms in the enumeration
+        # order of the level schedule), each to its target or, where the target has more terms
+        # in the step, to the sum of its column (compiled: :func:`._lu_kernel.row_steps`)
+        (level, prog.div_ptr, prog.div_entry, prog.div_pivot, prog.upd_to, prog.sum_ptr, prog.sum_target,
+         ok) = _lu_kernel.row_steps(n, row_ptr, prog.col, prog.diag)
+        if not ok:
+            raise RuntimeError("an update falls outside the filled pattern")
+        n_lev = self.n_levels = int(level.max()) + 1 if n else 1
+        low = np.flatnonzero(fr > fc)
+        upp = np.flatnonzero(fr < fc)
         # forward substitution level by level: y[i] -= sum of L[i, k] y[k] over the level's k
         levels = np.arange(n_lev)
         prog.fwd_ptr, prog.fwd_target, prog.fwd_term_ptr, prog.fwd_l, prog.fwd_y = _lu_kernel.flat_groups(
