@@ -56,9 +56,14 @@ intact rate, 1 worker, the ``reactive-limits`` profile.
 
 Usage: python benchmarks/score.py [--samples 10000] [--networks ieee14,ieee118] [--pandapower 30] [--quick]
        python benchmarks/score.py --scale [--scale-samples 10000[,N2,...]] [--scale-repeat 1]
+       python benchmarks/score.py --scale --scale-against OTHER/src [--scale-repeat 3]
        python benchmarks/score.py --state [--state-network ieee118] [--state-samples 2000] [--repeat 3]
-Writes benchmarks/results/score.json (or score_scale.json with --scale, score_state.json with
---state). Medians of --repeat runs.
+Writes benchmarks/results/score.json (or score_scale.json with --scale, score_scale_against.json
+with --scale-against, score_state.json with --state). Medians of --repeat runs.
+
+Against another version (``--scale-against``): the target configuration only, alternating fresh
+runs of this code and of the flowgauge source folder given (``git worktree add ../base <commit>``
+gives ``../base/src``); both must take the same Newton steps.
 """
 
 from __future__ import annotations
@@ -88,6 +93,7 @@ from flowgauge.scoring import (DEFAULT_PROFILE, REACTIVE_LIMITS_PROFILE, STRICT_
 OUT = Path(__file__).parent / "results" / "score.json"
 OUT_SCALE = Path(__file__).parent / "results" / "score_scale.json"
 OUT_STATE = Path(__file__).parent / "results" / "score_state.json"
+OUT_AGAINST = Path(__file__).parent / "results" / "score_scale_against.json"
 SCALE_NETWORK = "activsg2000"
 SCALE_TARGET = {"samples": 10000, "workers": 2, "seconds_at_most": 60.0, "peak_memory_bytes_at_most": 4e9}
 
@@ -284,13 +290,15 @@ def scale_child(network: str, samples: int, seed: int, profile: str, workers: in
     }), flush=True)
 
 
-def scale_run(network: str, samples: int, seed: int, profile: str, workers: int) -> dict:
-    """Run :func:`scale_child` in a fresh process and sample the memory of its process tree."""
+def scale_run(network: str, samples: int, seed: int, profile: str, workers: int, src: str | None = None) -> dict:
+    """Run :func:`scale_child` in a fresh process and sample the memory of its process tree.
+    With ``src``, the child imports flowgauge from that source folder (another version)."""
     import psutil
 
     cmd = [sys.executable, str(Path(__file__).resolve()), "--scale-child", network, str(samples), str(seed),
            profile, str(workers)]
-    proc = subprocess.Popen(cmd, stdout=subprocess.PIPE, text=True)
+    env = None if src is None else dict(os.environ, PYTHONPATH=str(Path(src).resolve()))
+    proc = subprocess.Popen(cmd, stdout=subprocess.PIPE, text=True, env=env)
     root = psutil.Process(proc.pid)
     peak, peak_procs = 0, 0
     while proc.poll() is None:
@@ -382,6 +390,37 @@ def main_scale(args) -> None:
     print(f"wrote {OUT_SCALE}")
 
 
+def main_scale_against(args) -> None:
+    """The target configuration (reactive-limits, 2 workers) with this code and with the code in
+    ``--scale-against`` (a ``src`` folder of another version, e.g. from ``git worktree add``),
+    alternating, ``--scale-repeat`` fresh runs each: the ratio of their medians is measured on
+    the same machine in the same period, which a shared machine's drift does not bias."""
+    t_start = time.perf_counter()
+    samples = int(str(args.scale_samples).split(",")[0])
+    runs = {"this": [], "other": []}
+    for _ in range(args.scale_repeat):  # alternate: any drift of the machine hits both alike
+        for which, src in (("other", args.scale_against), ("this", None)):
+            r = scale_run(SCALE_NETWORK, samples, args.seed, REACTIVE_LIMITS_PROFILE.name, 2, src)
+            runs[which].append(r)
+            print("against", which, json.dumps({k: r[k] for k in ("seconds", "tree_peak_rss_bytes")}), flush=True)
+    med = {k: statistics.median(r["seconds"] for r in v) for k, v in runs.items()}
+    if any(runs["this"][i]["iterations_mean"] != runs["other"][i]["iterations_mean"] for i in range(args.scale_repeat)):
+        raise SystemExit("the two versions took different Newton steps: not the same work")
+    doc = {"benchmark": "score", "section": "scale against another version", "flowgauge_version": __version__,
+           "python": platform.python_version(), "machine": platform.machine(), "cpus": os.cpu_count(),
+           "network": SCALE_NETWORK, "samples": samples, "profile": REACTIVE_LIMITS_PROFILE.name, "workers": 2,
+           "other_src": str(args.scale_against), "repeat": args.scale_repeat,
+           "seconds_this": [r["seconds"] for r in runs["this"]], "seconds_other": [r["seconds"] for r in runs["other"]],
+           "seconds_median_this": med["this"], "seconds_median_other": med["other"],
+           "speedup_of_medians": med["other"] / med["this"],
+           "tree_peak_rss_bytes_this": max(r["tree_peak_rss_bytes"] for r in runs["this"]),
+           "tree_peak_rss_bytes_other": max(r["tree_peak_rss_bytes"] for r in runs["other"]),
+           "seconds_total": time.perf_counter() - t_start, "load_average": list(os.getloadavg())}
+    OUT_AGAINST.parent.mkdir(parents=True, exist_ok=True)
+    atomic_write_text(OUT_AGAINST, json.dumps(doc, indent=1, sort_keys=True) + "\n")
+    print(f"wrote {OUT_AGAINST}")
+
+
 def state_flags(net, samples: int, seed: int):
     """(one branch out everywhere, one single outage per sample): each a pair of flags (S, n_branch),
     (S, n_gen), and the outage kinds drawn."""
@@ -462,6 +501,9 @@ def main() -> None:
                     help="sample count of every scale run; more counts after commas are run only with "
                          "reactive-limits and 2 workers (time and memory against the count)")
     ap.add_argument("--scale-repeat", type=int, default=1, help="fresh runs per configuration (median)")
+    ap.add_argument("--scale-against", default=None, metavar="SRC",
+                    help="with --scale: only the target configuration, this code against the flowgauge "
+                         f"source folder SRC (another version), alternating, into {OUT_AGAINST.name}")
     ap.add_argument("--state", action="store_true", help=f"only the state section, into {OUT_STATE.name}")
     ap.add_argument("--state-network", default="ieee118")
     ap.add_argument("--state-samples", type=int, default=2000)
@@ -474,7 +516,10 @@ def main() -> None:
     if args.scale:
         if args.quick:
             args.scale_samples = "512"
-        main_scale(args)
+        if args.scale_against:
+            main_scale_against(args)
+        else:
+            main_scale(args)
         return
     if args.quick:
         args.samples, args.pandapower, args.repeat = 1000, 10, 1
