@@ -18,9 +18,8 @@ import numpy as np
 import pytest
 from numba import njit
 
-from flowgauge._compiled import complex_product
+from flowgauge._compiled import ELIDE_BYTES, complex_product
 from flowgauge.network import load_network
-from flowgauge.physics._jacobian import _ELIDE_BYTES
 from flowgauge.powerflow._prepare import prepared
 
 
@@ -53,7 +52,7 @@ def test_compiled_fill_gives_numpy_bits(name):
     p = prepared(net)
     pat = p.pattern(p.pv, p.pq)
     # sample counts around the elision size of the diagonal terms' temporaries
-    edge = _ELIDE_BYTES // (16 * pat.diag.size)
+    edge = ELIDE_BYTES // (16 * pat.diag.size)
     rng = np.random.default_rng(11)
     for s in sorted({1, 2, 7, 8, 9, 33, edge - 1, edge, edge + 1, edge + 9}):
         vm = rng.uniform(0.9, 1.1, (net.n_bus, s))
@@ -67,12 +66,12 @@ def test_compiled_fill_gives_numpy_bits(name):
 @pytest.mark.parametrize("name", ["ieee14", "ieee118"])
 def test_compiled_mismatch_gives_numpy_bits(name):
     # the Newton loop's mismatch, bus currents and exp(j va), compiled (powerflow._newton)
-    from flowgauge.powerflow._newton import _ELIDE_BYTES as elide, _mismatch, _mismatch_numpy
+    from flowgauge.powerflow._newton import _mismatch, _mismatch_numpy
 
     net = load_network(name)
     p = prepared(net)
     pat = p.pattern(p.pv, p.pq)
-    edge = elide // (16 * net.n_bus)  # numpy swaps the product's operands from here on
+    edge = ELIDE_BYTES // (16 * net.n_bus)  # numpy swaps the product's operands from here on
     rng = np.random.default_rng(5)
     for s in sorted({1, 3, 8, edge, edge + 1, edge + 7}):
         vm = rng.uniform(0.9, 1.1, (s, net.n_bus))

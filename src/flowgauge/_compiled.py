@@ -17,7 +17,12 @@ from numba import njit
 from numba.core import types
 from numba.extending import intrinsic
 
-__all__ = ["compiled", "fma", "complex_product"]
+__all__ = ["compiled", "fma", "complex_product", "ELIDE_BYTES"]
+
+# numpy computes ``x * t`` as ``t * x`` in t's memory when t is a temporary array of at least
+# this many bytes (its "temporary elision"); for a complex product the operand order changes the
+# imaginary part's rounding, so compiled loops swap the operands where numpy does
+ELIDE_BYTES = 256 * 1024
 
 
 def compiled(fn):

@@ -18,16 +18,10 @@ from __future__ import annotations
 import numpy as np
 import scipy.sparse as sp
 
-from .._compiled import compiled, complex_product
+from .._compiled import ELIDE_BYTES, compiled, complex_product
 from ._admittance import Admittance
 
 __all__ = ["JacobianPattern", "powerflow_jacobian"]
-
-
-# numpy computes ``x * t`` as ``t * x`` in t's memory when t is a temporary array of at least
-# this many bytes (its "temporary elision"); for a complex product the operand order changes
-# the imaginary part's rounding (:func:`.._compiled.complex_product`)
-_ELIDE_BYTES = 256 * 1024
 
 
 @compiled
@@ -35,7 +29,7 @@ def _fill(vm, e, i_bus, y, rows, cols, is_diag, out_pos, elided, out):
     """The Jacobian values of :meth:`JacobianPattern.values_by_entry_numpy`, entry by entry,
     with numpy's operations in numpy's order and rounding. ``elided``: the diagonal terms'
     temporaries (``v[d]``, ``e[d]``, one per diagonal and sample) are at least
-    :data:`_ELIDE_BYTES`, so numpy multiplies them with their operands swapped."""
+    :data:`ELIDE_BYTES`, so numpy multiplies them with their operands swapped."""
     n_s = vm.shape[1]
     for k in range(rows.size):  # loop over Ybus entries; each fills up to four Jacobian entries
         r, c = rows[k], cols[k]
@@ -142,7 +136,7 @@ class JacobianPattern:
         e = np.ascontiguousarray(e, np.complex128)
         i_bus = np.ascontiguousarray(i_bus, np.complex128)
         out = np.empty((self.nnz, vm.shape[1]))
-        elided = self.diag.size * vm.shape[1] * 16 >= _ELIDE_BYTES
+        elided = self.diag.size * vm.shape[1] * 16 >= ELIDE_BYTES
         _fill(vm, e, i_bus, self.y, self._rows32, self._cols32, self._is_diag, self._out_pos, elided, out)
         return out
 

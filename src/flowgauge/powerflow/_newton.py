@@ -17,7 +17,7 @@ import numpy as np
 import scipy.sparse as sp
 import scipy.sparse.linalg as spla
 
-from .._compiled import compiled, complex_product
+from .._compiled import ELIDE_BYTES, compiled, complex_product
 from ..physics import JacobianPattern
 from ._stacked_lu import StackedLU, fill_reducing_order
 from ._status import CONVERGED, DIVERGED, MAX_ITERATIONS, SINGULAR_JACOBIAN, STATUS_NAMES
@@ -133,22 +133,16 @@ def _mismatch_numpy(ybus: sp.csr_matrix, vm, va, sbus, pvpq, pq):
     return np.concatenate([mis.real[:, pvpq], mis.imag[:, pq]], axis=1), i_bus, e
 
 
-# numpy computes ``x * t`` as ``t * x`` in t's memory when t is a temporary array of at least
-# this many bytes ("temporary elision"), which changes a complex product's rounding
-_ELIDE_BYTES = 256 * 1024
-
-
 def _mismatch(ybus: sp.csr_matrix, vm, va, sbus, pvpq, pq):
     """:func:`_mismatch_numpy` compiled (:func:`_mismatch_rows`), bit for bit."""
-    with np.errstate(all="ignore"):
-        y = ybus if ybus.format == "csr" else sp.csr_matrix(ybus)
-        vm, va = np.ascontiguousarray(vm, np.float64), np.ascontiguousarray(va, np.float64)
-        n_s, n_bus = vm.shape
-        f = np.empty((n_s, pvpq.size + pq.size))
-        i_bus = np.empty((n_s, n_bus), np.complex128)
-        e = np.empty((n_s, n_bus), np.complex128)
-        _mismatch_rows(vm, va, np.ascontiguousarray(sbus, np.complex128), y.indptr, y.indices, y.data,
-                       pvpq, pq, n_s * n_bus * 16 >= _ELIDE_BYTES, f, i_bus, e)
+    y = ybus if ybus.format == "csr" else sp.csr_matrix(ybus)
+    vm, va = np.ascontiguousarray(vm, np.float64), np.ascontiguousarray(va, np.float64)
+    n_s, n_bus = vm.shape
+    f = np.empty((n_s, pvpq.size + pq.size))
+    i_bus = np.empty((n_s, n_bus), np.complex128)
+    e = np.empty((n_s, n_bus), np.complex128)
+    _mismatch_rows(vm, va, np.ascontiguousarray(sbus, np.complex128), y.indptr, y.indices, y.data,
+                   pvpq, pq, n_s * n_bus * 16 >= ELIDE_BYTES, f, i_bus, e)
     return f, i_bus, e
 
 
