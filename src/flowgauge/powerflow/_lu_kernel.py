@@ -1,10 +1,11 @@
 """Compiled numeric factor-and-solve for :class:`~._stacked_lu.StackedLU`'s fixed schedule.
 
 The schedule (which entries divide, which updates go where, in which order) is built once per
-sparsity pattern in numpy; this module runs it in machine code (numba) on a few samples at a
-time, whose filled LU (some 80,000 entries a sample on a 2,000-bus Jacobian) stays in the
-processor's cache, where the vectorised numpy version streams every level of every sample of a
-batch through memory.
+sparsity pattern: the filled pattern (:func:`filled_rows`) and the factorisation's steps
+(:func:`row_steps`) in compiled loops here, the rest in numpy (``StackedLU._schedule``). This
+module runs it in machine code (numba) on a few samples at a time, whose filled LU (some 80,000
+entries a sample on a 2,000-bus Jacobian) stays in the processor's cache, where the vectorised
+numpy version streams every level of every sample of a batch through memory.
 
 The results are bit for bit those of the vectorised version (``StackedLU.solve_by_entry_numpy``):
 the same IEEE operations on the same operands, each target's terms summed in the same order,

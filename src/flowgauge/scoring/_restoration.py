@@ -254,7 +254,7 @@ def _restore_judging_chunks(net, arrays, profile, workers, scheduler, progress) 
     got = _run_chunks(net, arrays, dict(profile.powerflow), workers, scheduler, progress, each)
     conv = got["converged"]
     pg = got["pg_mw"]
-    cost = _cost(net, conv, {"pg_mw": pg if conv.all() else pg[conv]})
+    cost = _cost(net, conv, _converged_rows({"pg_mw": pg}, conv))
     return Restoration(vm_pu=None, va_deg=None, pg_mw=pg, qg_mvar=None, sf_mva=None, st_mva=None,
                        cost_per_h=cost, **_joined(parts, _JUDGED))
 
