@@ -29,13 +29,14 @@ def serial(tmp_path_factory):
     return build_split("ieee14", "test-edge", samples=SAMPLES, seed=SEED, out=out, chunk=CHUNK)
 
 
-def _busy_worker_pid(client, timeout=20.0):
-    """(address, pid) of a worker that is running a task now."""
+def _busy_worker_pid(cluster, timeout=20.0):
+    """(address, pid) of a worker that is running a task now, read from the scheduler's own
+    records (no second client calls into the cluster while the build's client runs)."""
     deadline = time.monotonic() + timeout
     while time.monotonic() < deadline:
-        busy = [addr for addr, keys in client.processing().items() if keys]
-        if busy:
-            return busy[0], client.run(os.getpid, workers=[busy[0]])[busy[0]]
+        for ws in list(cluster.scheduler.workers.values()):
+            if ws.processing and ws.pid:
+                return ws.address, ws.pid
         time.sleep(0.01)
     raise AssertionError("no worker was running a task")
 
@@ -58,7 +59,7 @@ def test_a_worker_killed_mid_build_changes_nothing(serial, cluster, tmp_path, al
 
     def kill_once_some_chunks_finished(p):
         if not killed and p.solved >= 2 * CHUNK:
-            addr, pid = _busy_worker_pid(client)
+            addr, pid = _busy_worker_pid(cluster)
             os.kill(pid, signal.SIGKILL)
             killed.update(addr=addr, pid=pid, solved=p.solved)
 

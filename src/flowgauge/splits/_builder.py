@@ -228,15 +228,27 @@ def build_split(network: str | Path | Network, split: str, *, samples: int, seed
     out = Path(out)
     _check_out(out)
     train = _train_split(split, out, train)
-    design = design_for(split, net, train)
-    job = Job(net=net, net_hash=network_hash(net), design=design, seed=seed,
-              acceptance=tuple(sorted(ACCEPTANCE.items())), max_attempts=max_attempts,
-              stream=draw_stream(split, design.name))
-    settings = solver_settings()
-    if expect is not None:
-        expect.check_plan(_plan(net, job, split, samples, settings, train))
     part = partial_dir(out)
-    chunks_dir = _prepare_partial(part, _fingerprint(job, settings, chunk), fresh)
+    if fresh and part.exists():
+        shutil.rmtree(part)
+    existed = part.exists()
+    try:
+        # the spanning design's pilot draws run where the chunks will, and the fitted pilot is
+        # kept beside the chunks, so that a resumed build does not solve it again
+        part.mkdir(parents=True, exist_ok=True)
+        design = design_for(split, net, train, run=lambda fn, tasks: run_tasks(fn, tasks, workers=workers,
+                                                                                scheduler=scheduler), store=part)
+        job = Job(net=net, net_hash=network_hash(net), design=design, seed=seed,
+                  acceptance=tuple(sorted(ACCEPTANCE.items())), max_attempts=max_attempts,
+                  stream=draw_stream(split, design.name))
+        settings = solver_settings()
+        if expect is not None:
+            expect.check_plan(_plan(net, job, split, samples, settings, train))
+        chunks_dir = _prepare_partial(part, _fingerprint(job, settings, chunk))
+    except BaseException:
+        if not existed:  # this run kept nothing to resume from: leave no trace
+            shutil.rmtree(part, ignore_errors=True)
+        raise
     ranges = _chunk_ranges(samples, chunk)
     done = {r: read_chunk(_chunk_path(chunks_dir, *r)) for r in ranges if _chunk_path(chunks_dir, *r).exists()}
     signatures = _train_signatures(train)
@@ -247,11 +259,11 @@ def build_split(network: str | Path | Network, split: str, *, samples: int, seed
     solved = sum(r[1] - r[0] for r in done)
     n_rej = sum(sum(json.loads(str(c["rejected"])).values()) for c in done.values())
     resumed = solved
-    if progress:
-        progress(BuildProgress(solved, n_rej, samples, resumed))
     todo = [(job, a, b) for (a, b) in ranges if (a, b) not in done]
     differs: tuple[int, IntegrityError] | None = None  # the earliest chunk found to differ
     try:
+        if progress:
+            progress(BuildProgress(solved, n_rej, samples, resumed))
         for (_, a, b), result in run_tasks(solve_chunk, todo, workers=workers, scheduler=scheduler):
             try:
                 check(a, b, result)  # before it is kept: a differing chunk is never resumed from

@@ -99,7 +99,11 @@ def _dask(fn: Callable, tasks: list, address: str, resubmits: int = RESUBMITS) -
             task, tries = pending.pop(fut.key)
             try:
                 result = fut.result()
-            except KilledWorker:
+            except Exception as exc:
+                if not isinstance(exc, KilledWorker) and fut.status == "error":
+                    raise  # the task's own error
+                # KilledWorker, or the result was lost with its worker before it reached us (the
+                # client then fails while it waits for the recomputation): run the task again
                 if tries >= resubmits:
                     raise InputError(f"this chunk killed Dask workers {tries + 1} times over (each time as many "
                                      "as the scheduler allows): out of memory? Finished chunks are kept; give the "

@@ -136,6 +136,7 @@ class SingleOutage:
 
     uses_slot: ClassVar[bool] = True
     has_states: ClassVar[bool] = True
+    solves_pilot: ClassVar[bool] = True
     name: str = "single-outage"
     loadings: Spanning = field(default_factory=Spanning)
     source: str = ""
@@ -145,10 +146,10 @@ class SingleOutage:
     candidates: dict = field(default_factory=dict)  # per table: outages listed before the checks
     list_info: dict = field(default_factory=dict)
 
-    def fitted(self, net: Network, solver=None) -> "SingleOutage":
+    def fitted(self, net: Network, solver=None, run=None, store=None) -> "SingleOutage":
         if self.branches is not None:
             return self
-        loadings = self.loadings.fitted(net, solver)
+        loadings = self.loadings.fitted(net, solver, run, store)
         path = contingency_path(net.name)
         if path.is_file():
             cl = load_contingencies(path, net)

@@ -34,13 +34,15 @@ changes a split.
 
 from __future__ import annotations
 
+import zipfile
 from collections import Counter
 from dataclasses import dataclass, field, replace
+from pathlib import Path
 from typing import Any, ClassVar
 
 import numpy as np
 
-from .._io import hash_arrays
+from .._io import canonical_json, hash_arrays, sha256_hex
 from ..errors import InputError
 from ..network import Network
 from ._designs import Loading, sample_rng
@@ -90,12 +92,66 @@ def _reactive(net: Network, pd: np.ndarray, pf: np.ndarray, leading=None) -> np.
     return pd * np.tan(np.arccos(np.clip(pf, 1e-3, 1.0))) * sign
 
 
+def pilot_row(design: "Spanning", net: Network, tools, slot: int):
+    """Pilot draw ``slot`` of ``design`` (its fraction fitted): ``(w, pf, frac, regime)`` of a
+    plain draw whose AC optimal power flow converged, or None."""
+    loading, (w, pf, frac) = design.plain(net, sample_rng(design.pilot_seed, slot, 0), tools)
+    if isinstance(loading, str):
+        return None
+    res = tools.solve(loading.pd_mw, loading.qd_mvar)
+    if res.status != "converged":
+        return None
+    return w, pf, frac, str(res.signature)
+
+
+def pilot_draw(net: Network, net_hash: str, design: "Spanning", slot: int):
+    """:func:`pilot_row` with this process's solvers (a task of the build's executor)."""
+    from ._worker import make_tools
+    return pilot_row(design, net, make_tools(net, net_hash), slot)
+
+
+def _pilot_arrays(weights, power_factor, fraction, regime) -> dict:
+    """The pilot: its loadings' arrays and the inverse-frequency weight of each one's regime."""
+    count = Counter(regime.tolist())
+    weight = np.array([1.0 / count[r] for r in regime.tolist()])
+    return {"weights": weights, "power_factor": power_factor, "fraction": fraction, "regime": regime,
+            "probability": weight / weight.sum()}
+
+
+_PILOT_ARRAYS = ("weights", "power_factor", "fraction", "regime")
+
+
+def _write_fitted(path: Path, key_text: str, fraction: tuple, pilot: dict) -> None:
+    from ._worker import write_chunk
+    arrays = {k: pilot[k] for k in _PILOT_ARRAYS}
+    arrays["fitted_fraction"] = np.array(fraction, float)
+    arrays["key"] = np.array(key_text)
+    write_chunk(path, {**arrays, "hash": np.array(hash_arrays(arrays))})
+
+
+def _read_fitted(path: Path, key_text: str):
+    """(fraction, pilot) kept by :func:`_write_fitted` for ``key_text``, or None if absent,
+    unreadable, altered or kept for another key."""
+    from ._worker import read_chunk
+    try:
+        arrays = read_chunk(path)
+        recorded = str(arrays.pop("hash"))
+    except (OSError, ValueError, KeyError, zipfile.BadZipFile):
+        return None
+    if (set(arrays) != {*_PILOT_ARRAYS, "fitted_fraction", "key"} or hash_arrays(arrays) != recorded
+            or str(arrays["key"]) != key_text):
+        return None
+    fraction = tuple(float(x) for x in arrays["fitted_fraction"])
+    return fraction, _pilot_arrays(*(arrays[k] for k in _PILOT_ARRAYS))
+
+
 @dataclass(frozen=True, eq=False)
 class Spanning:
     """Directions in load space and distances along them over the feasible region (module
     docstring); ``pilot`` is filled by :meth:`fitted`."""
 
     uses_slot: ClassVar[bool] = True
+    solves_pilot: ClassVar[bool] = True  # fitted(net, run=..., store=...)
     name: str = "spanning"
     concentration: tuple[float, float] = (0.3, 10.0)
     power_factor: tuple[float, float] = (0.85, 1.0)
@@ -136,19 +192,36 @@ class Spanning:
         return self._along(net, w, pf, frac, solver, "spanning"), (w, pf, frac)
 
     # -- the pilot and the steered draw ---------------------------------------------------
-    def fitted(self, net: Network, solver=None) -> "Spanning":
+    def fitted(self, net: Network, solver=None, run=None, store: Path | None = None) -> "Spanning":
+        """The design placed on ``net``: the lower end of ``fraction`` fitted
+        (:meth:`lightest_share`) and the pilot solved (:meth:`_pilot`).
+
+        ``run(fn, tasks)``: where the pilot's draws run (the build's executor: local worker
+        processes or a Dask cluster, yielding ``(task, result)`` in any order); None: here, one
+        after another. ``store``: a folder where the fitted design is kept
+        (``pilot-<key>.npz``), so that a resumed build does not solve its pilot again; a file
+        there that is unreadable or does not match its recorded hash is solved again. Neither
+        changes the result: every pilot draw depends only on its slot."""
         if self.pilot is not None:
             return self
         if net.n_bus > LARGE_NETWORK_BUSES and self.pilot_draws > LARGE_PILOT_DRAWS:
-            return replace(self, pilot_draws=LARGE_PILOT_DRAWS).fitted(net, solver)
+            return replace(self, pilot_draws=LARGE_PILOT_DRAWS).fitted(net, solver, run, store)
         from ._manifest import network_hash
         from ._worker import _Tools
-        key = (network_hash(net), self.pilot_draws, self.pilot_seed, self.concentration, self.power_factor,
+        net_hash = network_hash(net)
+        key = (net_hash, self.pilot_draws, self.pilot_seed, self.concentration, self.power_factor,
                self.fraction, self.start_share)
+        key_text = canonical_json(list(key)).decode()
+        path = None if store is None else Path(store) / f"pilot-{sha256_hex(key_text.encode())[:16]}.npz"
         if key not in _PILOTS:  # every split of a network in one process shares its pilot
-            tools = solver or _Tools(net)
-            fitted = replace(self, fraction=(self.lightest_share(net, tools), self.fraction[1]))
-            _PILOTS[key] = (fitted.fraction, fitted._pilot(net, tools))
+            kept = None if path is None else _read_fitted(path, key_text)
+            if kept is None:
+                tools = solver or _Tools(net)
+                fitted = replace(self, fraction=(self.lightest_share(net, tools), self.fraction[1]))
+                kept = (fitted.fraction, fitted._pilot(net, tools, run, net_hash))
+            _PILOTS[key] = kept
+        if path is not None and not path.exists():
+            _write_fitted(path, key_text, *_PILOTS[key])
         fraction, pilot = _PILOTS[key]
         return replace(self, fraction=fraction, pilot=pilot)
 
@@ -174,23 +247,19 @@ class Spanning:
         low = self.fraction[0]
         return list(LIGHT_SHARES) + [x for x in HEAVY_SHARES if x <= low and low > LIGHT_SHARES[-1]]
 
-    def _pilot(self, net: Network, tools) -> dict:
-        ws, pfs, fracs, regimes = [], [], [], []
-        for slot in range(self.pilot_draws):
-            loading, (w, pf, frac) = self.plain(net, sample_rng(self.pilot_seed, slot, 0), tools)
-            if isinstance(loading, str):
-                continue
-            res = tools.solve(loading.pd_mw, loading.qd_mvar)
-            if res.status != "converged":
-                continue
-            ws.append(w), pfs.append(pf), fracs.append(frac), regimes.append(str(res.signature))
-        if not ws:
+    def _pilot(self, net: Network, tools, run=None, net_hash: str = "") -> dict:
+        if run is None:
+            rows = [pilot_row(self, net, tools, slot) for slot in range(self.pilot_draws)]
+        else:
+            by_slot = {task[3]: row for task, row in run(pilot_draw, [(net, net_hash, self, slot)
+                                                                    for slot in range(self.pilot_draws)])}
+            rows = [by_slot[slot] for slot in range(self.pilot_draws)]
+        kept = [row for row in rows if row is not None]
+        if not kept:
             raise InputError(f"none of the {self.pilot_draws} pilot draws of the spanning design had a feasible "
                              "AC optimal power flow", where=f"network {net.name!r}")
-        count = Counter(regimes)
-        weight = np.array([1.0 / count[r] for r in regimes])
-        return {"weights": np.array(ws), "power_factor": np.array(pfs), "fraction": np.array(fracs),
-                "regime": np.array(regimes), "probability": weight / weight.sum()}
+        ws, pfs, fracs, regimes = (list(col) for col in zip(*kept))
+        return _pilot_arrays(np.array(ws), np.array(pfs), np.array(fracs), np.array(regimes))
 
     def pilot_summary(self) -> dict[str, Any]:
         p = self.pilot or {}
@@ -240,6 +309,7 @@ class Outside:
     """
 
     uses_slot: ClassVar[bool] = True
+    solves_pilot: ClassVar[bool] = True
     name: str = "outside"
     spanning: Spanning = field(default_factory=Spanning)
     low_power_factor: tuple[float, float] = (0.6, 0.8)
@@ -248,8 +318,8 @@ class Outside:
     train_regimes: frozenset = frozenset()
     train_split_hash: str = ""
 
-    def fitted(self, net: Network, solver=None) -> "Outside":
-        return replace(self, spanning=self.spanning.fitted(net, solver))
+    def fitted(self, net: Network, solver=None, run=None, store: Path | None = None) -> "Outside":
+        return replace(self, spanning=self.spanning.fitted(net, solver, run, store))
 
     def with_train(self, regimes, split_hash: str) -> "Outside":
         return replace(self, train_regimes=frozenset(str(r) for r in regimes), train_split_hash=split_hash)
