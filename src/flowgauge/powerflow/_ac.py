@@ -7,6 +7,7 @@ import time
 
 import numpy as np
 
+from .._compiled import ELIDE_BYTES, complex_abs, complex_product, compiled
 from ..errors import InputError
 from ..network._model import Network
 from ._dc import dc_angles, reference_pg
@@ -88,7 +89,8 @@ def _assemble(p: Prepared, vm, va, pg, qg_set, pd, qd, fixed_q) -> dict:
         return _assemble_fields(p, vm, va, pg, qg_set, pd, qd, fixed_q)
 
 
-def _assemble_fields(p: Prepared, vm, va, pg, qg_set, pd, qd, fixed_q) -> dict:
+def _assemble_fields_numpy(p: Prepared, vm, va, pg, qg_set, pd, qd, fixed_q) -> dict:
+    """:func:`_assemble_fields` in numpy (the reference it is checked against)."""
     net, adm, base = p.net, p.adm, p.net.base_mva
     v = vm * np.exp(1j * va)
     s_inj = v * np.conj((adm.ybus @ v.T).T) * base
@@ -102,6 +104,76 @@ def _assemble_fields(p: Prepared, vm, va, pg, qg_set, pd, qd, fixed_q) -> dict:
     return dict(vm_pu=vm, va_deg=np.rad2deg(va), pg_mw=pg_out, qg_mvar=qg_out,
                 pf_mw=sf.real, qf_mvar=sf.imag, pt_mw=st.real, qt_mvar=st.imag,
                 sf_mva=np.abs(sf), st_mva=np.abs(st))
+
+
+def _assemble_fields(p: Prepared, vm, va, pg, qg_set, pd, qd, fixed_q) -> dict:
+    """Generator outputs and branch flows from the solved voltages: the bus injections and the
+    branch flows compiled (:func:`_flow_rows`), bit for bit :func:`_assemble_fields_numpy`."""
+    net, adm, base = p.net, p.adm, p.net.base_mva
+    vm, va = np.ascontiguousarray(vm, np.float64), np.ascontiguousarray(va, np.float64)
+    n_s, nl = vm.shape[0], net.n_branch
+    y, b = adm.ybus.tocsr(), p.branch_currents
+    s_inj = np.empty((n_s, net.n_bus), np.complex128)
+    sf = np.empty((n_s, nl), np.complex128)
+    st = np.empty((n_s, nl), np.complex128)
+    mva = np.empty((2, n_s, nl))
+    # numpy computes conj(I) * v in conj(I)'s memory (its temporary elision) from this size
+    swapped = n_s * net.n_bus * 16 >= ELIDE_BYTES
+    _flow_rows(vm, va, y.indptr, y.indices, y.data, b.indptr, b.indices, b.data,
+               np.ascontiguousarray(net.f_idx, np.int64), np.ascontiguousarray(net.t_idx, np.int64),
+               float(base), swapped, s_inj, sf, st, mva)
+    sd_bus = (adm.cl @ (pd + 1j * qd).T).T
+    pg_out = reference_pg(p, pg, s_inj.real, sd_bus.real)
+    qg_out = _share_q(p, s_inj.imag + sd_bus.imag, qg_set, fixed_q)
+    return dict(vm_pu=vm, va_deg=np.rad2deg(va), pg_mw=pg_out, qg_mvar=qg_out,
+                pf_mw=sf.real, qf_mvar=sf.imag, pt_mw=st.real, qt_mvar=st.imag,
+                sf_mva=mva[0], st_mva=mva[1])
+
+
+@compiled
+def _flow_rows(vm, va, y_ptr, y_idx, y_data, b_ptr, b_idx, b_data, f_idx, t_idx, base, swapped,
+               s_inj, sf, st, mva):
+    """Per sample, numpy's operations of :func:`_assemble_fields_numpy` for the bus injections
+    and branch flows, in numpy's rounding (as ``_newton._mismatch_rows``): ``v = vm exp(j va)``;
+    currents as SciPy's sparse product sums them; ``v conj(I)`` and ``v_f conj(I_f)`` as numpy's
+    complex product (the first with its operands swapped where numpy elides ``conj(I)``), then
+    times ``base`` (a complex product with ``base + 0j``); the magnitudes as numpy's absolute
+    value (:func:`.._compiled.complex_abs`)."""
+    n_s, n_bus = vm.shape
+    nl = f_idx.size
+    v = np.empty(n_bus, np.complex128)
+    for s in range(n_s):
+        for i in range(n_bus):
+            c, sn = np.cos(va[s, i]), np.sin(va[s, i])
+            vr, vi = complex_product(vm[s, i], 0.0, c, sn)
+            v[i] = complex(vr, vi)
+        for i in range(n_bus):
+            yr, yi = 0.0, 0.0
+            for jj in range(y_ptr[i], y_ptr[i + 1]):
+                a, x = y_data[jj], v[y_idx[jj]]
+                yr = yr + (a.real * x.real - a.imag * x.imag)
+                yi = yi + (a.real * x.imag + a.imag * x.real)
+            if swapped:
+                mr, mi = complex_product(yr, -yi, v[i].real, v[i].imag)
+            else:
+                mr, mi = complex_product(v[i].real, v[i].imag, yr, -yi)
+            sr, si = complex_product(mr, mi, base, 0.0)
+            s_inj[s, i] = complex(sr, si)
+        for r in range(2 * nl):
+            yr, yi = 0.0, 0.0
+            for jj in range(b_ptr[r], b_ptr[r + 1]):
+                a, x = b_data[jj], v[b_idx[jj]]
+                yr = yr + (a.real * x.real - a.imag * x.imag)
+                yi = yi + (a.real * x.imag + a.imag * x.real)
+            end = v[f_idx[r]] if r < nl else v[t_idx[r - nl]]
+            mr, mi = complex_product(end.real, end.imag, yr, -yi)
+            fr, fi = complex_product(mr, mi, base, 0.0)
+            if r < nl:
+                sf[s, r] = complex(fr, fi)
+                mva[0, s, r] = complex_abs(fr, fi)
+            else:
+                st[s, r - nl] = complex(fr, fi)
+                mva[1, s, r - nl] = complex_abs(fr, fi)
 
 
 def _run(p, pv, pq, vm0, va0, sbus, tol, max_iter, linear, hold=None):

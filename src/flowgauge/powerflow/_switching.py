@@ -25,7 +25,9 @@ all samples share one sparsity pattern whatever their PV/PQ sets.
 from __future__ import annotations
 
 import numpy as np
+import scipy.sparse as sp
 
+from .._compiled import ELIDE_BYTES, complex_product, compiled
 from ._prepare import Prepared, bus_injection_setpoints
 from ._status import CONVERGED, SWITCHING_UNSETTLED
 
@@ -51,11 +53,53 @@ def _bus_limits(p: Prepared) -> tuple[np.ndarray, np.ndarray]:
     return qmin, qmax
 
 
-def _pv_generation_mvar(p: Prepared, vm, va, qd_bus_pv) -> np.ndarray:
-    """Reactive generation at the PV buses (S, n_pv) [MVAr] from solved voltages."""
+def _pv_generation_mvar_numpy(p: Prepared, vm, va, qd_bus_pv) -> np.ndarray:
+    """Reactive generation at the PV buses (S, n_pv) [MVAr] from solved voltages, in numpy (the
+    reference :func:`_pv_generation_mvar` is checked against)."""
     v = vm * np.exp(1j * va)
     i_pv = (p.adm.ybus[p.pv] @ v.T).T
     return (v[:, p.pv] * np.conj(i_pv)).imag * p.net.base_mva + qd_bus_pv
+
+
+def _pv_generation_mvar(p: Prepared, vm, va, qd_bus_pv) -> np.ndarray:
+    """:func:`_pv_generation_mvar_numpy` compiled (:func:`_pv_generation_rows`), bit for bit."""
+    y = p.adm.ybus if p.adm.ybus.format == "csr" else sp.csr_matrix(p.adm.ybus)
+    vm, va = np.ascontiguousarray(vm, np.float64), np.ascontiguousarray(va, np.float64)
+    pv = np.ascontiguousarray(p.pv, np.int64)
+    out = np.empty((vm.shape[0], pv.size))
+    # numpy computes conj(I) * v[:, pv] in conj(I)'s memory (its temporary elision) from this size
+    swapped = vm.shape[0] * pv.size * 16 >= ELIDE_BYTES
+    _pv_generation_rows(vm, va, y.indptr, y.indices, y.data, pv, float(p.net.base_mva),
+                        np.ascontiguousarray(qd_bus_pv, np.float64), swapped, out)
+    return out
+
+
+@compiled
+def _pv_generation_rows(vm, va, indptr, indices, ydata, pv, base, qd_bus_pv, swapped, out):
+    """Per sample, numpy's operations of :func:`_pv_generation_mvar_numpy` in numpy's rounding
+    (as ``_newton._mismatch_rows``): ``v = vm exp(j va)``, each PV bus's current as SciPy's
+    sparse product sums it, ``v conj(I)`` as numpy's complex product (operands swapped where
+    numpy elides the temporary ``conj(I)``), then its imaginary part times ``base`` plus the
+    bus's reactive load, two roundings."""
+    n_s, n_bus = vm.shape
+    v = np.empty(n_bus, np.complex128)
+    for s in range(n_s):
+        for i in range(n_bus):
+            c, sn = np.cos(va[s, i]), np.sin(va[s, i])
+            vr, vi = complex_product(vm[s, i], 0.0, c, sn)
+            v[i] = complex(vr, vi)
+        for k in range(pv.size):
+            i = pv[k]
+            yr, yi = 0.0, 0.0
+            for jj in range(indptr[i], indptr[i + 1]):
+                a, x = ydata[jj], v[indices[jj]]
+                yr = yr + (a.real * x.real - a.imag * x.imag)
+                yi = yi + (a.real * x.imag + a.imag * x.real)
+            if swapped:
+                mi = complex_product(yr, -yi, v[i].real, v[i].imag)[1]
+            else:
+                mi = complex_product(v[i].real, v[i].imag, yr, -yi)[1]
+            out[s, k] = mi * base + qd_bus_pv[s, k]
 
 
 def run_switching(p: Prepared, run, pg, qg_set, pd, qd, vm, va, max_rounds: int = MAX_SWITCH_ROUNDS,
