@@ -18,7 +18,8 @@ from numba import njit
 from numba.core import types
 from numba.extending import intrinsic
 
-__all__ = ["compiled", "fma", "complex_product", "complex_abs", "ELIDE_BYTES"]
+__all__ = ["compiled", "fma", "complex_product", "complex_abs", "polar_voltage", "sparse_row_product",
+           "ELIDE_BYTES"]
 
 # numpy computes ``x * t`` as ``t * x`` in t's memory when t is a temporary array of at least
 # this many bytes (its "temporary elision"); for a complex product the operand order changes the
@@ -68,3 +69,25 @@ def complex_abs(re, im):
     larger, smaller = max(a, b), min(a, b)
     ratio = 0.0 if larger == 0.0 or smaller == np.inf else smaller / larger
     return np.sqrt(fma(ratio, ratio, 1.0)) * larger
+
+
+@njit(inline="always")
+def polar_voltage(vm, va):
+    """(cos va, sin va, re, im) of ``vm * exp(1j * va)`` as numpy computes it (numba's cos and
+    sin are numpy's exp of ``j va`` bit for bit for finite ``va``)."""
+    c, sn = np.cos(va), np.sin(va)
+    vr, vi = complex_product(vm, 0.0, c, sn)
+    return c, sn, vr, vi
+
+
+@njit(inline="always")
+def sparse_row_product(indptr, indices, data, v, i):
+    """(re, im) of row ``i`` of a complex CSR matrix times the complex vector ``v``, as SciPy's
+    sparse product computes it: the row's terms in stored order, summed from 0, each product
+    written out without fused operations."""
+    yr, yi = 0.0, 0.0
+    for jj in range(indptr[i], indptr[i + 1]):
+        a, x = data[jj], v[indices[jj]]
+        yr = yr + (a.real * x.real - a.imag * x.imag)
+        yi = yi + (a.real * x.imag + a.imag * x.real)
+    return yr, yi

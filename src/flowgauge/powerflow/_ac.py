@@ -7,7 +7,7 @@ import time
 
 import numpy as np
 
-from .._compiled import ELIDE_BYTES, complex_abs, complex_product, compiled
+from .._compiled import ELIDE_BYTES, complex_abs, complex_product, compiled, polar_voltage, sparse_row_product
 from ..errors import InputError
 from ..network._model import Network
 from ._dc import dc_angles, reference_pg
@@ -144,15 +144,10 @@ def _flow_rows(vm, va, y_ptr, y_idx, y_data, b_ptr, b_idx, b_data, f_idx, t_idx,
     v = np.empty(n_bus, np.complex128)
     for s in range(n_s):
         for i in range(n_bus):
-            c, sn = np.cos(va[s, i]), np.sin(va[s, i])
-            vr, vi = complex_product(vm[s, i], 0.0, c, sn)
+            vr, vi = polar_voltage(vm[s, i], va[s, i])[2:]
             v[i] = complex(vr, vi)
         for i in range(n_bus):
-            yr, yi = 0.0, 0.0
-            for jj in range(y_ptr[i], y_ptr[i + 1]):
-                a, x = y_data[jj], v[y_idx[jj]]
-                yr = yr + (a.real * x.real - a.imag * x.imag)
-                yi = yi + (a.real * x.imag + a.imag * x.real)
+            yr, yi = sparse_row_product(y_ptr, y_idx, y_data, v, i)
             if swapped:
                 mr, mi = complex_product(yr, -yi, v[i].real, v[i].imag)
             else:
@@ -160,11 +155,7 @@ def _flow_rows(vm, va, y_ptr, y_idx, y_data, b_ptr, b_idx, b_data, f_idx, t_idx,
             sr, si = complex_product(mr, mi, base, 0.0)
             s_inj[s, i] = complex(sr, si)
         for r in range(2 * nl):
-            yr, yi = 0.0, 0.0
-            for jj in range(b_ptr[r], b_ptr[r + 1]):
-                a, x = b_data[jj], v[b_idx[jj]]
-                yr = yr + (a.real * x.real - a.imag * x.imag)
-                yi = yi + (a.real * x.imag + a.imag * x.real)
+            yr, yi = sparse_row_product(b_ptr, b_idx, b_data, v, r)
             end = v[f_idx[r]] if r < nl else v[t_idx[r - nl]]
             mr, mi = complex_product(end.real, end.imag, yr, -yi)
             fr, fi = complex_product(mr, mi, base, 0.0)

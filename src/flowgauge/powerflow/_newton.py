@@ -17,7 +17,7 @@ import numpy as np
 import scipy.sparse as sp
 import scipy.sparse.linalg as spla
 
-from .._compiled import ELIDE_BYTES, compiled, complex_product
+from .._compiled import ELIDE_BYTES, compiled, complex_product, polar_voltage, sparse_row_product
 from ..physics import JacobianPattern
 from ._stacked_lu import StackedLU, fill_reducing_order
 from ._status import CONVERGED, DIVERGED, MAX_ITERATIONS, SINGULAR_JACOBIAN, STATUS_NAMES
@@ -158,16 +158,11 @@ def _mismatch_rows(vm, va, sbus, indptr, indices, ydata, pvpq, pq, swapped, f, i
     mis = np.empty(n_bus, np.complex128)
     for s in range(n_s):
         for i in range(n_bus):
-            c, sn = np.cos(va[s, i]), np.sin(va[s, i])
+            c, sn, vr, vi = polar_voltage(vm[s, i], va[s, i])
             e[s, i] = complex(c, sn)
-            vr, vi = complex_product(vm[s, i], 0.0, c, sn)
             v[i] = complex(vr, vi)
         for i in range(n_bus):
-            yr, yi = 0.0, 0.0
-            for jj in range(indptr[i], indptr[i + 1]):
-                a, x = ydata[jj], v[indices[jj]]
-                yr = yr + (a.real * x.real - a.imag * x.imag)
-                yi = yi + (a.real * x.imag + a.imag * x.real)
+            yr, yi = sparse_row_product(indptr, indices, ydata, v, i)
             i_bus[s, i] = complex(yr, yi)
             if swapped:
                 mr, mi = complex_product(yr, -yi, v[i].real, v[i].imag)

@@ -27,7 +27,7 @@ from __future__ import annotations
 import numpy as np
 import scipy.sparse as sp
 
-from .._compiled import ELIDE_BYTES, complex_product, compiled
+from .._compiled import ELIDE_BYTES, complex_product, compiled, polar_voltage, sparse_row_product
 from ._prepare import Prepared, bus_injection_setpoints
 from ._status import CONVERGED, SWITCHING_UNSETTLED
 
@@ -85,16 +85,11 @@ def _pv_generation_rows(vm, va, indptr, indices, ydata, pv, base, qd_bus_pv, swa
     v = np.empty(n_bus, np.complex128)
     for s in range(n_s):
         for i in range(n_bus):
-            c, sn = np.cos(va[s, i]), np.sin(va[s, i])
-            vr, vi = complex_product(vm[s, i], 0.0, c, sn)
+            vr, vi = polar_voltage(vm[s, i], va[s, i])[2:]
             v[i] = complex(vr, vi)
         for k in range(pv.size):
             i = pv[k]
-            yr, yi = 0.0, 0.0
-            for jj in range(indptr[i], indptr[i + 1]):
-                a, x = ydata[jj], v[indices[jj]]
-                yr = yr + (a.real * x.real - a.imag * x.imag)
-                yi = yi + (a.real * x.imag + a.imag * x.real)
+            yr, yi = sparse_row_product(indptr, indices, ydata, v, i)
             if swapped:
                 mi = complex_product(yr, -yi, v[i].real, v[i].imag)[1]
             else:
