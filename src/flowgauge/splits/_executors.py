@@ -9,6 +9,7 @@ from __future__ import annotations
 from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
 from typing import Any, Callable, Iterable, Iterator
 
+from .._io import clip_text
 from .._workers import pool_initializer
 from ..errors import InputError
 
@@ -104,10 +105,14 @@ def _dask(fn: Callable, tasks: list, address: str, resubmits: int = RESUBMITS) -
                     raise  # the task's own error
                 # KilledWorker, or the result was lost with its worker before it reached us (the
                 # client then fails while it waits for the recomputation): run the task again
-                if tries >= resubmits:
+                if tries >= resubmits and isinstance(exc, KilledWorker):
                     raise InputError(f"this chunk killed Dask workers {tries + 1} times over (each time as many "
                                      "as the scheduler allows): out of memory? Finished chunks are kept; give the "
                                      "workers more memory and rerun to resume", where=_chunk_name(task)) from None
+                if tries >= resubmits:
+                    raise InputError(f"the cluster lost this chunk's result {tries + 1} times over (its workers left, "
+                                     f"or the scheduler is unreachable: {clip_text(str(exc) or type(exc).__name__, 120)}"
+                                     "). Finished chunks are kept; rerun to resume", where=_chunk_name(task)) from None
                 again = submit(task)
                 pending[again.key] = (task, tries + 1)
                 queue.add(again)

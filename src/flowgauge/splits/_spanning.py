@@ -136,7 +136,7 @@ def _read_fitted(path: Path, key_text: str):
     try:
         arrays = read_chunk(path)
         recorded = str(arrays.pop("hash"))
-    except (OSError, ValueError, KeyError, zipfile.BadZipFile):
+    except (OSError, EOFError, ValueError, KeyError, zipfile.BadZipFile):
         return None
     if (set(arrays) != {*_PILOT_ARRAYS, "fitted_fraction", "key"} or hash_arrays(arrays) != recorded
             or str(arrays["key"]) != key_text):
