@@ -64,6 +64,9 @@ def test_kept_pilot_is_read_back_and_an_altered_one_solved_again(no_pilots_in_me
     again = design.fitted(net, store=tmp_path)
     _same_pilot(first, again)
     assert solved == [1]
+    _spanning._PILOTS.clear()  # the rewritten file is read back
+    monkeypatch.setattr(Spanning, "_pilot", _fails)
+    _same_pilot(first, design.fitted(net, store=tmp_path))
 
 
 def test_resumed_build_reads_its_pilot_and_gives_the_same_split(no_pilots_in_memory, tmp_path, monkeypatch):

@@ -220,7 +220,7 @@ class Spanning:
                 fitted = replace(self, fraction=(self.lightest_share(net, tools), self.fraction[1]))
                 kept = (fitted.fraction, fitted._pilot(net, tools, run, net_hash))
             _PILOTS[key] = kept
-        if path is not None and not path.exists():
+        if path is not None and _read_fitted(path, key_text) is None:  # absent or damaged: (re)write
             _write_fitted(path, key_text, *_PILOTS[key])
         fraction, pilot = _PILOTS[key]
         return replace(self, fraction=fraction, pilot=pilot)
