@@ -25,7 +25,6 @@ all samples share one sparsity pattern whatever their PV/PQ sets.
 from __future__ import annotations
 
 import numpy as np
-import scipy.sparse as sp
 
 from .._compiled import ELIDE_BYTES, complex_product, compiled, polar_voltage, sparse_row_product
 from ._prepare import Prepared, bus_injection_setpoints
@@ -63,7 +62,7 @@ def _pv_generation_mvar_numpy(p: Prepared, vm, va, qd_bus_pv) -> np.ndarray:
 
 def _pv_generation_mvar(p: Prepared, vm, va, qd_bus_pv) -> np.ndarray:
     """:func:`_pv_generation_mvar_numpy` compiled (:func:`_pv_generation_rows`), bit for bit."""
-    y = p.adm.ybus if p.adm.ybus.format == "csr" else sp.csr_matrix(p.adm.ybus)
+    y = p.adm.ybus.tocsr()  # itself when already CSR
     vm, va = np.ascontiguousarray(vm, np.float64), np.ascontiguousarray(va, np.float64)
     pv = np.ascontiguousarray(p.pv, np.int64)
     out = np.empty((vm.shape[0], pv.size))
