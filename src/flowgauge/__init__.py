@@ -8,6 +8,11 @@ from __future__ import annotations
 
 import importlib
 
+from ._numerics import pin_blas_kernels
+
+# before anything loads numpy: one family of BLAS kernels on every x86-64 CPU (_numerics)
+pin_blas_kernels()
+
 __version__ = "0.1.0"
 
 # public name -> subpackage that defines it

@@ -54,7 +54,7 @@ def rank(board: Path, verify: bool, workers: int) -> None:
 def _for_screen(exc):
     from ..leaderboard._text import clean, short_hashes
     where = None if exc.where is None else short_hashes(clean(exc.where, 200))
-    return type(exc)(short_hashes(clean(exc.message, 400)), where=where)
+    return type(exc)(clean(short_hashes(str(exc.message)), 400), where=where)
 
 
 def print_report(report, board: Path, console) -> None:

@@ -130,9 +130,12 @@ def _scorecard(board: Path, sub: Submission, rules: Rules, profile_hash: str, ve
                                  where=card_rel)
         fresh = _score(sub, rules, workers).to_dict()
         if fresh["scorecard_hash"] != card["scorecard_hash"]:
+            from .._numerics import kernel_note
+            note = kernel_note()
             raise IntegrityError(
                 f"rescoring {sub.shown_path} gives scorecard hash {fresh['scorecard_hash']}, "
-                f"the committed scorecard records {card['scorecard_hash']}", where=card_rel)
+                f"the committed scorecard records {card['scorecard_hash']}" + (f"; {note}" if note else ""),
+                where=card_rel)
         return sub, card, None
     if reason is None:
         return sub, card, None

@@ -261,10 +261,17 @@ class Expectation:
             for key in ("inputs", "references"):
                 want = self.digests[key][sample]
                 if got[key][i] != want:
+                    hint = ""
+                    if key == "references":  # same inputs: the solver's arithmetic differs
+                        from .._numerics import kernel_note
+                        hint = ("; reference solutions can differ in their last digits on another CPU model "
+                                "(docs/splits.md, \"How far it reproduces\")")
+                        note = kernel_note()
+                        hint += f"; {note}" if note else ""
                     raise IntegrityError(
                         f"the {self.made} {key} of sample {sample} differ from the recipe's (sample digest "
                         f"{want}, {self.made} {got[key][i]}); the first differing sample of samples "
-                        f"{start}..{stop - 1}",
+                        f"{start}..{stop - 1}{hint}",
                         where=f"sample {sample} ({self.files[key]})")
 
     def check_manifest(self, manifest: dict[str, Any], folder: Path | None = None) -> None:
