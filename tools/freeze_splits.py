@@ -41,7 +41,8 @@ LARGE = ["activsg200", "pegase1354", "activsg2000", "pegase2869"]
 # (plus 2-3 s for its AC-OPF), and on activsg2000 more than half of the spanning draws are
 # rejected (mostly directions whose start point has no feasible loading, each found after a
 # full loadability solve); most hours of the 2,000-bus system's year are infeasible with the
-# case's fixed generator commitment (each such draw costs 20-60 s before it is rejected).
+# case's fixed capacitors and fixed commitment (each such draw costs 20-60 s before it is
+# rejected; docs/splits.md, "Year design").
 # pegase2869: 40 / 60 / 40 in 1,788 s, 1,136 s and 609 s with 2 workers (docs/splits.md).
 LARGE_COUNTS = {
     "activsg200": {"train": 300, "test-id": 150, "test-ood": 150, "test-edge": 150, "test-year": 300},
