@@ -37,7 +37,7 @@ import warnings
 from collections import Counter
 from pathlib import Path
 
-import flowgauge  # noqa: F401  (first: it pins OpenBLAS's kernels before numpy loads them)
+import flowgauge  # noqa: F401  (first: it pins OpenBLAS's and numpy's CPU level before numpy loads)
 import numpy as np
 import scipy
 

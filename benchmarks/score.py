@@ -80,7 +80,7 @@ import time
 import warnings
 from pathlib import Path
 
-import flowgauge  # noqa: F401  (first: it pins OpenBLAS's kernels before numpy loads them)
+import flowgauge  # noqa: F401  (first: it pins OpenBLAS's and numpy's CPU level before numpy loads)
 import numpy as np
 from numpy.random import PCG64, Generator
 

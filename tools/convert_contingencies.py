@@ -27,7 +27,7 @@ import re
 import sys
 from pathlib import Path
 
-import flowgauge  # noqa: F401  (first: it pins OpenBLAS's kernels before numpy loads them)
+import flowgauge  # noqa: F401  (first: it pins OpenBLAS's and numpy's CPU level before numpy loads)
 import numpy as np
 
 ROOT = Path(__file__).resolve().parents[1]

@@ -8,10 +8,10 @@ from __future__ import annotations
 
 import importlib
 
-from ._numerics import pin_blas_kernels
+from ._numerics import pin_cpu_level
 
-# before anything loads numpy: one family of BLAS kernels on every x86-64 CPU (_numerics)
-pin_blas_kernels()
+# before anything loads numpy: the AVX2 level of arithmetic on every x86-64 CPU (_numerics)
+pin_cpu_level()
 
 __version__ = "0.1.0"
 
