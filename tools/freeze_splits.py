@@ -46,9 +46,11 @@ LARGE = ["activsg200", "pegase1354", "activsg2000", "pegase2869"]
 # pegase2869: 40 / 60 / 40 in 1,788 s, 1,136 s and 609 s with 2 workers (docs/splits.md).
 LARGE_COUNTS = {
     "activsg200": {"train": 300, "test-id": 150, "test-ood": 150, "test-edge": 150, "test-year": 300},
-    # no test-ood: on this system 9 of 10 out-of-distribution draws were rejected (low power
-    # factors have no feasible AC-OPF), each after a costly solve: 5 kept in 4 minutes
-    "pegase1354": {"train": 60, "test-id": 40, "test-edge": 40},
+    # test-id and test-edge grown from 40 to 200 samples on 2026-12-02, beside the train split
+    # rebuilt from its recipe. No test-ood: 9 of 10 outside draws were rejected at first (low
+    # power factors have no feasible AC-OPF), and a 40-sample build on 2026-12-02 stopped at
+    # sample 10 after 80 draws in a row were rejected (77 of them loadability-infeasible)
+    "pegase1354": {"train": 60, "test-id": 200, "test-edge": 200},
     # no test-ood yet: a 30-sample build had not finished its first chunk of 10 after 14
     # minutes with 2 workers (outside draws are rejected even more often; docs/splits.md);
     # test-edge is cheap here (150 in 1,349 s)
