@@ -96,3 +96,13 @@ def test_a_committed_scorecard_rescores_to_its_bytes(tmp_path):
                           env=env, capture_output=True, text=True, timeout=300)
     assert done.returncode == 0, done.stderr
     assert json.loads(out.read_text())["scorecard_hash"] == card["scorecard_hash"]
+
+
+@needs_avx2
+def test_the_test_process_computes_at_the_pinned_level():
+    # tests/conftest.py imports flowgauge before numpy, so in-process tests compute as the CLI
+    # does; a plugin that loaded numpy first would show here
+    from flowgauge._numerics import blas_kernels, numpy_uses_avx512, pinned
+    assert pinned()[0], pinned()[1]
+    assert set(blas_kernels().values()) <= set(REPRODUCIBLE_KERNELS)
+    assert numpy_uses_avx512() is False
