@@ -106,9 +106,11 @@ def pinned() -> tuple[bool, str]:
     return bool(_state["pinned"]), str(_state["reason"])
 
 
-def blas_kernels() -> dict[str, str]:
-    """The kernel family of every OpenBLAS library loaded in this process, by file name
-    (Linux: read from /proc/self/maps); empty where none is loaded or this cannot be read."""
+def blas_kernels(all_libraries: bool = False) -> dict[str, str]:
+    """The kernel family of the OpenBLAS libraries of numpy and SciPy loaded in this process (of
+    every OpenBLAS library with ``all_libraries``: a reference solver may bring its own), by
+    file name (Linux: read from /proc/self/maps); empty where none is loaded or this cannot be
+    read."""
     import ctypes
 
     try:
@@ -117,6 +119,8 @@ def blas_kernels() -> dict[str, str]:
         return {}
     libs = sorted({line.split()[-1] for line in maps.splitlines()
                    if "openblas" in line.lower() and ".so" in line.split()[-1]})
+    if not all_libraries:  # the ones flowgauge computes with: in numpy's and SciPy's wheels
+        libs = [path for path in libs if "numpy" in path or "scipy" in path]
     out: dict[str, str] = {}
     for path in libs:
         try:
