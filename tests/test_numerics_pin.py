@@ -30,9 +30,15 @@ REPORT = ("import json, os, scipy.sparse.linalg; "
           "'numpy_avx512': numpy_uses_avx512(), 'npy': os.environ.get('NPY_DISABLE_CPU_FEATURES')}))")
 
 
-def _run(code: str, **env_changes) -> dict:
+def _env(**changes) -> dict:
+    """This environment without any CPU-level setting of its own, plus ``changes``."""
     env = {k: v for k, v in os.environ.items() if k not in (VARIABLE, NUMPY_VARIABLE, OFF_VARIABLE)}
-    env.update(env_changes)
+    env.update(changes)
+    return env
+
+
+def _run(code: str, **env_changes) -> dict:
+    env = _env(**env_changes)
     out = subprocess.run([sys.executable, "-c", code], env=env, capture_output=True, text=True, timeout=120)
     assert out.returncode == 0, out.stderr
     return json.loads(out.stdout.strip().splitlines()[-1])
@@ -65,6 +71,12 @@ def test_numpys_avx512_targets_by_version():
     assert numpy_avx512_targets("2.4.6") == "X86_V4 AVX512_ICL AVX512_SPR"
     assert numpy_avx512_targets("2.0.2").split() == ["AVX512F", "AVX512CD", "AVX512_KNL", "AVX512_KNM", "AVX512_SKX",
                                                      "AVX512_CLX", "AVX512_CNL", "AVX512_ICL"]
+    # and against the numpy installed here: every name is one of its dispatch targets (numpy
+    # warns about a name it does not know and leaves that target on)
+    import numpy
+    dispatch = set(numpy._core._multiarray_umath.__cpu_dispatch__)
+    if any("512" in name for name in dispatch):  # an x86-64 build of numpy
+        assert set(numpy_avx512_targets(numpy.__version__).split()) <= dispatch
 
 
 def test_numpy_imported_first_is_reported_not_pinned():
@@ -90,7 +102,7 @@ def test_a_committed_scorecard_rescores_to_its_bytes(tmp_path):
     sub = ROOT / "leaderboard" / "submissions" / "activsg200" / "test-id" / "dc-opf.parquet"
     card = json.loads((ROOT / "leaderboard" / "scorecards" / "activsg200" / "test-id" / "dc-opf.json").read_text())
     out = tmp_path / "dc-opf.scorecard.json"
-    env = {k: v for k, v in os.environ.items() if k not in (VARIABLE, NUMPY_VARIABLE, OFF_VARIABLE)}
+    env = _env()
     done = subprocess.run([sys.executable, "-c", "import sys; from flowgauge.cli import main; sys.exit(main(sys.argv[1:]))",
                            "score", str(sub), "--out", str(out)], cwd=ROOT,
                           env=env, capture_output=True, text=True, timeout=300)

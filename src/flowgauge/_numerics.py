@@ -106,21 +106,19 @@ def pinned() -> tuple[bool, str]:
     return bool(_state["pinned"]), str(_state["reason"])
 
 
-def blas_kernels(all_libraries: bool = False) -> dict[str, str]:
-    """The kernel family of the OpenBLAS libraries of numpy and SciPy loaded in this process (of
-    every OpenBLAS library with ``all_libraries``: a reference solver may bring its own), by
+def blas_kernels() -> dict[str, str]:
+    """The kernel family of the OpenBLAS libraries of numpy and SciPy loaded in this process, by
     file name (Linux: read from /proc/self/maps); empty where none is loaded or this cannot be
-    read."""
+    read. Other OpenBLAS copies (casadi brings one for Ipopt) are left out: flowgauge does not
+    compute with them."""
     import ctypes
 
     try:
         maps = Path(f"/proc/{os.getpid()}/maps").read_text(errors="replace")
     except OSError:
         return {}
-    libs = sorted({line.split()[-1] for line in maps.splitlines()
-                   if "openblas" in line.lower() and ".so" in line.split()[-1]})
-    if not all_libraries:  # the ones flowgauge computes with: in numpy's and SciPy's wheels
-        libs = [path for path in libs if "numpy" in path or "scipy" in path]
+    libs = sorted({path for path in (line.split()[-1] for line in maps.splitlines() if line.strip())
+                   if "openblas" in path.lower() and ".so" in path and ("numpy" in path or "scipy" in path)})
     out: dict[str, str] = {}
     for path in libs:
         try:
@@ -149,8 +147,9 @@ def numpy_uses_avx512() -> bool:
 
 
 def kernel_note() -> str:
-    """One sentence for a failed byte-for-byte check when this process computes at another CPU
-    level than the board's (OpenBLAS's AVX2 kernels, numpy without AVX-512 loops), else ''."""
+    """One sentence for a failed byte-for-byte check (a board scorecard, a split rebuilt from its
+    recipe) when this process computes at another CPU level than the committed files (OpenBLAS's
+    AVX2 kernels, numpy without AVX-512 loops), else ''."""
     other = sorted({v for v in blas_kernels().values() if v not in REPRODUCIBLE_KERNELS})
     parts = []
     if other:
@@ -159,5 +158,5 @@ def kernel_note() -> str:
         parts.append("numpy's AVX-512 loops")
     if not parts:
         return ""
-    return (f"computed here with {' and '.join(parts)}, the board at the AVX2 level ({pinned()[1]}): run with "
+    return (f"computed here with {' and '.join(parts)}, the committed files at the AVX2 level ({pinned()[1]}): run with "
             f"{VARIABLE}={KERNELS} and {NUMPY_VARIABLE}=\"{numpy_avx512_targets(_numpy_version())}\"")
