@@ -9,8 +9,9 @@ board, not ranked).
 
 Every frozen test split of each network gets entries (test-id, test-ood, test-edge, and
 test-year / test-n1 where frozen), unless --splits narrows them; the baselines that learn
-(nearest, linear) are fitted on the network's train split, which must be present (for the large
-systems, rebuild it first: flowgauge splits rebuild <network>/train).
+(nearest, linear) are fitted on the network's train split (for the large systems, rebuild it
+first: flowgauge splits rebuild <network>/train). Where it is absent, only the baselines that do
+not learn (dc-opf) and the calibration rows are entered, and the tool says which were skipped.
 
 Run it after the frozen splits change (their hashes are recorded in every predictions file).
 """
@@ -40,12 +41,16 @@ def main(argv: list[str] | None = None) -> int:
     networks = args.networks or sorted(p.name for p in root.iterdir()
                                        if p.is_dir() and (p / "train" / "manifest.json").exists())
     for network in networks:
-        train = load_split(root / network / "train")
+        has_train = (root / network / "train" / "manifest.json").exists()
+        train = load_split(root / network / "train") if has_train else None
         for split_name in args.splits:
             if not (root / network / split_name / "manifest.json").exists():
                 continue
             split = load_split(root / network / split_name)
             for name in sorted(BASELINES):
+                if BASELINES[name][0] and train is None:  # a baseline that learns, and no train split here
+                    print(f"{network}/{split_name}: {name} skipped (no {network}/train here to fit it on)", flush=True)
+                    continue
                 out = args.out / network / split_name / f"{name}.parquet"  # Parquet: a tenth of the JSON's size
                 write_baseline(name, split, out, train=train, format="parquet")
                 print(f"{network}/{split_name}: {name} -> {out}", flush=True)

@@ -59,7 +59,7 @@ def _unlimited(net: Network) -> Network:
 
 
 def dc_opf(net: Network, pd_mw: np.ndarray, sample_id: np.ndarray, progress=None, *,
-           branch_in_service=None, gen_in_service=None) -> Prediction:
+           branch_in_service=None, gen_in_service=None, shunt_in_service=None) -> Prediction:
     """The DC-OPF dispatch of each sample, with the network's voltage setpoints (within limits);
     where the DC-OPF is infeasible, the same without branch and angle limits (an economic
     dispatch), and where that is infeasible too, :func:`_bounded_dispatch`. ``progress(done,
@@ -68,7 +68,8 @@ def dc_opf(net: Network, pd_mw: np.ndarray, sample_id: np.ndarray, progress=None
     ``branch_in_service`` (S, n_branch) and ``gen_in_service`` (S, n_gen) bool, optional: each
     sample's network state; the samples are grouped by state and each is solved on its state
     network (:func:`flowgauge.network.network_in_state`: lines out carry nothing, generators
-    out are held at 0). The voltage setpoints are the intact network's."""
+    out are held at 0; ``shunt_in_service`` (S, n_bus), optional, with them: bus shunts out hold no
+    conductance). The voltage setpoints are the intact network's."""
     from ..opf import solve_dcopf
 
     pd = np.asarray(pd_mw, float)
@@ -78,12 +79,14 @@ def dc_opf(net: Network, pd_mw: np.ndarray, sample_id: np.ndarray, progress=None
         groups = [(net, np.arange(n))]
     else:
         from ..network import group_states, network_in_state
-        ub, ug, group = group_states(branch_in_service, gen_in_service)
+        more = () if shunt_in_service is None else (shunt_in_service,)
+        ub, ug, *us, group = group_states(branch_in_service, gen_in_service, *more)
         sid = np.asarray(sample_id)
         groups = []
         for k in range(ub.shape[0]):
             rows = np.flatnonzero(group == k)
-            groups.append((network_in_state(net, ub[k], ug[k], sample=sid[rows[0]].item()), rows))
+            groups.append((network_in_state(net, ub[k], ug[k], sample=sid[rows[0]].item(),
+                                            shunt_in_service=us[0][k] if us else None), rows))
     done = 0
     for state_net, rows in groups:
         # Where the DC model has no feasible dispatch (a loading the AC network carries can break

@@ -59,7 +59,8 @@ def predict_baseline(name: str, split, *, train=None, progress=None) -> Predicti
         # the one baseline that follows each sample's network state (nearest and linear ignore it)
         return dc_opf(split.network, split.pd_mw, split.sample_id, progress,
                       branch_in_service=getattr(split, "branch_in_service", None),
-                      gen_in_service=getattr(split, "gen_in_service", None))
+                      gen_in_service=getattr(split, "gen_in_service", None),
+                      shunt_in_service=getattr(split, "shunt_in_service", None))
     train = train_split_for(split) if train is None else _load(train)
     if name == "nearest":
         return nearest(train, split.pd_mw, split.qd_mvar)

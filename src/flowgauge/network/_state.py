@@ -1,7 +1,10 @@
-"""Per-sample network state: which branches and generators are in service.
+"""Per-sample network state: which branches, generators and bus shunts are in service.
 
 A state is two bool arrays in the network's element order: ``branch_in_service`` shape
-(n_branch,) and ``gen_in_service`` shape (n_gen,). :func:`network_in_state` turns a state into
+(n_branch,) and ``gen_in_service`` shape (n_gen,), and optionally a third,
+``shunt_in_service`` shape (n_bus,): whether each bus's shunt (``gs_mw``, ``bs_mvar``) is
+connected (a switched capacitor bank; a flag at a bus without a shunt changes nothing).
+:func:`network_in_state` turns a state into
 a :class:`Network` of the same shapes on which the power flow and the AC-OPF run unchanged and
 give the results of the case with those elements removed (docs/topology.md lists the rules and
 the two places where per-generator outputs of the power flow differ). :func:`sample_graph`
@@ -26,7 +29,7 @@ __all__ = [
     "ISLANDING", "ISLAND_WITHOUT_GENERATION", "REFERENCE_WITHOUT_GENERATION", "REASONS",
     "StateProblem", "Rejection", "SingleOutages", "GraphView", "EDGE_FEATURES", "NODE_FEATURES",
     "intact_state", "check_state", "state_problem", "network_in_state", "single_outages",
-    "group_states", "check_states", "binding_in_state", "sample_graph",
+    "group_states", "check_states", "check_shunt_flags", "binding_in_state", "sample_graph",
 ]
 
 # Reasons a state is refused, in the order they are checked.
@@ -44,7 +47,7 @@ def _sample_prefix(sample) -> str:
 
 
 def _element(net: Network, table: str, pos: int) -> str:
-    ids = {"branch": net.branch_id, "generator": net.gen_id, "bus": net.bus_id}[table]
+    ids = {"branch": net.branch_id, "generator": net.gen_id, "bus": net.bus_id, "bus shunt": net.bus_id}[table]
     return f"{table} {pos} (id {int(ids[pos])})"
 
 
@@ -97,6 +100,12 @@ def check_state(net: Network, branch_in_service, gen_in_service, *, sample=None)
                          "not put them in (expected false)",
                          where=f"{_sample_prefix(sample)}branch_in_service, {_element(net, 'branch', i)}")
     return br, gen
+
+
+def check_shunt_flags(net: Network, shunt_in_service, *, sample=None) -> np.ndarray:
+    """``shunt_in_service`` as a bool array (a copy), shape (n_bus,): one flag per bus, in the
+    network's bus order (bool, or integers 0 and 1). Errors name ``sample``, the field and the bus."""
+    return _flags(net, shunt_in_service, "shunt_in_service", "bus shunt", net.n_bus, sample)
 
 
 # ---- topology rules ----------------------------------------------------------------------
@@ -178,24 +187,34 @@ def _generation(net: Network, gen: np.ndarray, n_comp: int, label: np.ndarray) -
 
 # ---- the network of a state --------------------------------------------------------------
 
-def network_in_state(net: Network, branch_in_service, gen_in_service, *, sample=None) -> Network:
+def network_in_state(net: Network, branch_in_service, gen_in_service, *, sample=None,
+                     shunt_in_service=None) -> Network:
     """A :class:`Network` of the same shapes and element order as ``net`` for this state.
 
     Branches out: ``in_service`` False. Generators out: ``pmin_mw = pmax_mw = qmin_mvar =
     qmax_mvar = pg_mw = qg_mvar = 0`` and zero cost coefficients (NaN costs stay NaN), and
     ``vg_pu`` copied from the last in-service generator at its bus (else the bus's ``vm_pu``), so
     the default start voltages are those of the case without it. A PV bus left without an
-    in-service generator becomes PQ. The intact state returns ``net`` itself.
+    in-service generator becomes PQ. Bus shunts out (``shunt_in_service`` False, optional):
+    ``gs_mw = bs_mvar = 0`` at that bus. The intact state returns ``net`` itself.
 
     Raises :class:`InputError` naming ``sample`` and the element for bad flags
-    (:func:`check_state`) and for a state :func:`state_problem` refuses.
+    (:func:`check_state`, :func:`check_shunt_flags`) and for a state :func:`state_problem` refuses.
     """
     br, gen = check_state(net, branch_in_service, gen_in_service, sample=sample)
+    shunt_out = None
+    if shunt_in_service is not None:
+        shunt_out = ~check_shunt_flags(net, shunt_in_service, sample=sample)
+        shunt_out &= (np.asarray(net.gs_mw, float) != 0.0) | (np.asarray(net.bs_mvar, float) != 0.0)
+        if not shunt_out.any():
+            shunt_out = None
     problem = state_problem(net, br, gen)
     if problem is not None:
         raise InputError(problem.message, where=f"{_sample_prefix(sample)}{problem.element}")
+    shunts = {} if shunt_out is None else {name: np.where(shunt_out, 0.0, np.asarray(getattr(net, name), float))
+                                            for name in ("gs_mw", "bs_mvar")}
     if gen.all() and np.array_equal(br, np.asarray(net.in_service, bool)):
-        return net
+        return net.replace(**shunts) if shunts else net
     out = ~gen
     changes = {name: np.where(out, 0.0, np.asarray(getattr(net, name), float))
                for name in ("pmin_mw", "pmax_mw", "qmin_mvar", "qmax_mvar", "pg_mw", "qg_mvar")}
@@ -212,39 +231,45 @@ def network_in_state(net: Network, branch_in_service, gen_in_service, *, sample=
     bus_type = np.array(net.bus_type)
     has_gen = np.bincount(gb[gen], minlength=net.n_bus) > 0
     bus_type[(bus_type == BUS_PV) & ~has_gen] = BUS_PQ
-    return net.replace(in_service=br, bus_type=bus_type, vg_pu=vg, **changes)
+    return net.replace(in_service=br, bus_type=bus_type, vg_pu=vg, **changes, **shunts)
 
 
-def group_states(branch_in_service: np.ndarray, gen_in_service: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+def group_states(branch_in_service: np.ndarray, gen_in_service: np.ndarray, *more: np.ndarray) -> tuple:
     """Samples grouped by state, for solvers that run once per topology.
 
-    ``branch_in_service`` (S, n_branch), ``gen_in_service`` (S, n_gen) bool. Returns
-    (``branch`` (K, n_branch), ``gen`` (K, n_gen), ``group`` (S,) int64): the K distinct states,
-    ordered by first appearance among the samples, and each sample's state number.
+    ``branch_in_service`` (S, n_branch), ``gen_in_service`` (S, n_gen) bool, and any further
+    per-sample flags (for example ``shunt_in_service`` (S, n_bus)). Returns (``branch`` (K,
+    n_branch), ``gen`` (K, n_gen), the further flags (K, ...), ``group`` (S,) int64): the K
+    distinct states, ordered by first appearance among the samples, and each sample's state
+    number.
     """
-    br = np.asarray(branch_in_service, bool)
-    gen = np.asarray(gen_in_service, bool)
-    both = np.concatenate([br, gen], axis=1)
+    arrays = [np.asarray(a, bool) for a in (branch_in_service, gen_in_service, *more)]
+    both = np.concatenate(arrays, axis=1)
     _, first, inverse = np.unique(both, axis=0, return_index=True, return_inverse=True)
     order = np.argsort(first, kind="stable")  # distinct states by first appearance
     rank = np.empty_like(order)
     rank[order] = np.arange(order.size)
     keep = np.sort(first)
-    return br[keep], gen[keep], rank[np.ravel(inverse)].astype(np.int64)
+    return (*(a[keep] for a in arrays), rank[np.ravel(inverse)].astype(np.int64))
 
 
-def check_states(net: Network, branch_in_service, gen_in_service, sample_id) -> tuple[np.ndarray, np.ndarray]:
-    """Many samples' states at once: flags (S, n_branch) and (S, n_gen), ``sample_id`` (S,).
+def check_states(net: Network, branch_in_service, gen_in_service, sample_id, *,
+                 shunt_in_service=None) -> tuple[np.ndarray, np.ndarray]:
+    """Many samples' states at once: flags (S, n_branch) and (S, n_gen), ``sample_id`` (S,),
+    optionally ``shunt_in_service`` (S, n_bus).
 
     Checks shapes and types, then each distinct state (:func:`group_states`) by
     :func:`check_state` and :func:`state_problem`; the first problem raises :class:`InputError`
-    naming the first sample (in row order) that has it. Returns the flags as bool arrays.
+    naming the first sample (in row order) that has it. Returns the branch and generator flags
+    as bool arrays (the shunt flags, when given, are checked the same way and are bool).
     """
     sid = np.asarray(sample_id)
     n_s = sid.shape[0] if sid.ndim == 1 else -1
     out = []
-    for field, value, n in (("branch_in_service", branch_in_service, net.n_branch),
-                            ("gen_in_service", gen_in_service, net.n_gen)):
+    fields = [("branch_in_service", branch_in_service, net.n_branch), ("gen_in_service", gen_in_service, net.n_gen)]
+    if shunt_in_service is not None:
+        fields.append(("shunt_in_service", shunt_in_service, net.n_bus))
+    for field, value, n in fields:
         a = np.asarray(value)
         if n_s < 0 or a.shape != (n_s, n):
             raise InputError(f"expected shape ({max(n_s, 0)}, {n}) (one row per sample, one flag per element), "
@@ -252,14 +277,15 @@ def check_states(net: Network, branch_in_service, gen_in_service, sample_id) -> 
         if a.dtype.kind != "b":
             raise InputError(f"expected true/false flags (bool), got values of dtype {a.dtype}", where=field)
         out.append(a)
-    br, gen = out
+    br, gen = out[:2]
     if n_s == 0:
         return br.copy(), gen.copy()
-    ub, ug, group = group_states(br, gen)
-    first = np.full(ub.shape[0], n_s)
+    *flags, group = group_states(*out)
+    first = np.full(group.max() + 1, n_s)
     np.minimum.at(first, group, np.arange(n_s))
     for k in np.argsort(first, kind="stable").tolist():  # loop over distinct states, in row order
-        network_in_state(net, ub[k], ug[k], sample=sid[first[k]].item())
+        network_in_state(net, flags[0][k], flags[1][k], sample=sid[first[k]].item(),
+                         shunt_in_service=flags[2][k] if len(flags) > 2 else None)
     return br.copy(), gen.copy()
 
 
@@ -417,9 +443,11 @@ def _loads(name: str, value, n: int, sample) -> np.ndarray:
 
 
 def sample_graph(net: Network, branch_in_service, pd_mw, qd_mvar, gen_in_service=None, *,
-                 sample=None) -> GraphView:
+                 sample=None, shunt_in_service=None) -> GraphView:
     """The graph of one sample: ``branch_in_service`` (n_branch,) bool, loads ``pd_mw``,
-    ``qd_mvar`` (n_load,) [MW], [MVAr], ``gen_in_service`` (n_gen,) bool (None: all in service).
+    ``qd_mvar`` (n_load,) [MW], [MVAr], ``gen_in_service`` (n_gen,) bool (None: all in service),
+    ``shunt_in_service`` (n_bus,) bool (None: every bus shunt connected; a shunt out reads 0 in
+    ``gs_mw`` and ``bs_mvar``).
 
     The view describes the state as given; it does not refuse islanding states
     (:func:`network_in_state` does). Bad flags or loads raise :class:`InputError` naming ``sample``.
@@ -429,6 +457,8 @@ def sample_graph(net: Network, branch_in_service, pd_mw, qd_mvar, gen_in_service
     br, gen = check_state(net, branch_in_service, gen_in_service, sample=sample)
     pd = _loads("pd_mw", pd_mw, net.n_load, sample)
     qd = _loads("qd_mvar", qd_mvar, net.n_load, sample)
+    shunt = np.ones(net.n_bus, bool) if shunt_in_service is None else check_shunt_flags(net, shunt_in_service,
+                                                                                         sample=sample)
     edges = np.flatnonzero(br)
     edge_index = np.stack([net.f_idx[edges], net.t_idx[edges]], axis=1).astype(np.int64).reshape(-1, 2)
     edge_features = np.stack([np.asarray(getattr(net, k), float)[edges] for k in EDGE_FEATURES], axis=1)
@@ -440,7 +470,7 @@ def sample_graph(net: Network, branch_in_service, pd_mw, qd_mvar, gen_in_service
     bus_type = np.array(net.bus_type, float)
     bus_type[(bus_type == BUS_PV) & (np.bincount(gb, minlength=nb) == 0)] = BUS_PQ
     nodes = [per_bus(net.load_bus_idx, pd), per_bus(net.load_bus_idx, qd),
-             np.asarray(net.gs_mw, float), np.asarray(net.bs_mvar, float),
+             np.where(shunt, np.asarray(net.gs_mw, float), 0.0), np.where(shunt, np.asarray(net.bs_mvar, float), 0.0),
              np.asarray(net.vmin_pu, float), np.asarray(net.vmax_pu, float),
              per_bus(gb, net.pmin_mw[gen]), per_bus(gb, net.pmax_mw[gen]),
              per_bus(gb, net.qmin_mvar[gen]), per_bus(gb, net.qmax_mvar[gen]), bus_type]

@@ -271,7 +271,8 @@ def score_arrays(net: Network, *, sample_id, pd_mw, qd_mvar, reference_cost_per_
                  qg_mvar=None, inference_ms=None, reference_solve_ms: float | None = None,
                  profile: str | ScoringProfile | None = None, workers: int = 1, scheduler: str | None = None,
                  progress: Callable[[int, int], None] | None = None, regime_seen_in_train=None,
-                 kind=None, branch_in_service=None, gen_in_service=None) -> tuple[dict, pd.DataFrame]:
+                 kind=None, branch_in_service=None, gen_in_service=None,
+                 shunt_in_service=None) -> tuple[dict, pd.DataFrame]:
     """The scorer's core on arrays already checked and aligned, rows sorted by ``sample_id``.
 
     ``pd_mw``, ``qd_mvar`` (S, n_load) [MW, MVAr]; ``reference_cost_per_h`` (S,) [$/h];
@@ -284,7 +285,8 @@ def score_arrays(net: Network, *, sample_id, pd_mw, qd_mvar, reference_cost_per_
     sample's network state (docs/topology.md); every metric, the restoration and every limit
     check then run on each sample's state network (``_state``), the predicted setpoints of
     generators out are set to 0 before the restoration, the table gains ``outage`` and the
-    aggregates ``by_outage``. Returns (aggregates, per-sample table).
+    aggregates ``by_outage``. ``shunt_in_service`` (S, n_bus) bool, optional, with them: which
+    bus shunts are connected in each sample. Returns (aggregates, per-sample table).
     """
     if isinstance(workers, bool) or not isinstance(workers, (int, np.integer)) or workers < 1:
         raise InputError(f"The 'workers' parameter of score must be an integer >= 1. Got {workers!r} instead.",
@@ -301,8 +303,11 @@ def score_arrays(net: Network, *, sample_id, pd_mw, qd_mvar, reference_cost_per_
     inference = _optional(inference_ms)
 
     groups = None
+    if shunt_in_service is not None and (branch_in_service is None or gen_in_service is None):
+        raise InputError("bus shunt flags are part of a per-sample state: give branch_in_service and "
+                         "gen_in_service with them", where="shunt_in_service")
     if branch_in_service is not None or gen_in_service is not None:  # checked before anything is computed
-        groups = state_groups(net, branch_in_service, gen_in_service, sid)
+        groups = state_groups(net, branch_in_service, gen_in_service, sid, shunt_in_service)
     raw_ratios = None
     if groups is None:
         raw_cost = generator_cost_per_h(pg, cost_c2=net.cost_c2, cost_c1=net.cost_c1, cost_c0=net.cost_c0)
@@ -402,4 +407,8 @@ def _states_of(split, order: np.ndarray) -> dict:
     br = getattr(split, "branch_in_service", None)
     if br is None:
         return {}
-    return {"branch_in_service": np.asarray(br)[order], "gen_in_service": np.asarray(split.gen_in_service)[order]}
+    out = {"branch_in_service": np.asarray(br)[order], "gen_in_service": np.asarray(split.gen_in_service)[order]}
+    shunt = getattr(split, "shunt_in_service", None)
+    if shunt is not None:
+        out["shunt_in_service"] = np.asarray(shunt)[order]
+    return out

@@ -1,5 +1,5 @@
 """Scoring samples that run on different network states (splits with ``branch_in_service`` /
-``gen_in_service`` columns, docs/topology.md).
+``gen_in_service`` columns, and optionally ``shunt_in_service``; docs/topology.md).
 
 Samples are grouped by state (:func:`flowgauge.network.group_states`); every metric, the
 restoration power flow and every limit check of a group run on that state's network
@@ -39,13 +39,15 @@ OUTAGE_KINDS = ("intact", "branch out", "generator out", "branch and generator o
 class StateGroups:
     """Samples grouped by state: ``networks`` (K,) the state networks, ``branch`` (K, n_branch)
     and ``gen`` (K, n_gen) bool flags, ``rows`` (K,) the sample rows of each group (ascending),
-    ``kind`` (S,) str the outage kind of each sample (:data:`OUTAGE_KINDS`)."""
+    ``kind`` (S,) str the outage kind of each sample (:data:`OUTAGE_KINDS`), ``shunt`` (K, n_bus)
+    bool the bus shunt flags of each group (None: the network's shunts in every sample)."""
 
     networks: tuple
     branch: np.ndarray
     gen: np.ndarray
     rows: tuple
     kind: np.ndarray
+    shunt: np.ndarray | None = None
 
     @property
     def n_samples(self) -> int:
@@ -60,14 +62,18 @@ def outage_kinds(net: Network, branch_in_service, gen_in_service) -> np.ndarray:
     return np.asarray(OUTAGE_KINDS, dtype=object)[br_out.astype(int) + 2 * gen_out.astype(int)].astype(str)
 
 
-def state_groups(net: Network, branch_in_service, gen_in_service, sample_id) -> StateGroups:
+def state_groups(net: Network, branch_in_service, gen_in_service, sample_id, shunt_in_service=None) -> StateGroups:
     """Check the flags of every sample (errors name the first sample with a refused state and
-    the element) and group the samples by state."""
-    br, gen = check_states(net, branch_in_service, gen_in_service, sample_id)
-    ub, ug, group = group_states(br, gen)
+    the element) and group the samples by state (branch, generator and, when given, bus shunt
+    flags)."""
+    br, gen = check_states(net, branch_in_service, gen_in_service, sample_id, shunt_in_service=shunt_in_service)
+    more = () if shunt_in_service is None else (np.asarray(shunt_in_service, bool),)
+    ub, ug, *us, group = group_states(br, gen, *more)
+    shunt = us[0] if us else None
     rows = tuple(np.flatnonzero(group == k) for k in range(ub.shape[0]))
-    nets = tuple(network_in_state(net, ub[k], ug[k]) for k in range(ub.shape[0]))
-    return StateGroups(networks=nets, branch=ub, gen=ug, rows=rows, kind=outage_kinds(net, br, gen))
+    nets = tuple(network_in_state(net, ub[k], ug[k], shunt_in_service=None if shunt is None else shunt[k])
+                 for k in range(ub.shape[0]))
+    return StateGroups(networks=nets, branch=ub, gen=ug, rows=rows, kind=outage_kinds(net, br, gen), shunt=shunt)
 
 
 def zero_out_generators(groups: StateGroups, pg_mw: np.ndarray) -> np.ndarray:
@@ -121,13 +127,13 @@ def _init_worker(net: Network) -> None:
     _WORKER_NETS.clear()
 
 
-def _solve_in_worker(branch, gen, pd_mw, qd_mvar, pg_mw, vm_pu, powerflow: dict) -> dict[str, np.ndarray]:
+def _solve_in_worker(branch, gen, shunt, pd_mw, qd_mvar, pg_mw, vm_pu, powerflow: dict) -> dict[str, np.ndarray]:
     # one state network per state in each worker process, so the power flow's per-network
     # preparation is reused by every chunk of that state the process solves
-    key = (branch.tobytes(), gen.tobytes())
+    key = (branch.tobytes(), gen.tobytes(), None if shunt is None else shunt.tobytes())
     net = _WORKER_NETS.get(key)
     if net is None:
-        net = _WORKER_NETS[key] = network_in_state(_WORKER_BASE, branch, gen)
+        net = _WORKER_NETS[key] = network_in_state(_WORKER_BASE, branch, gen, shunt_in_service=shunt)
     return solve_restoration_chunk(net, pd_mw, qd_mvar, pg_mw, vm_pu, powerflow)
 
 
@@ -186,7 +192,8 @@ def restore_in_states(net: Network, groups: StateGroups, *, pd_mw, qd_mvar, pg_m
             client.close()
     elif workers > 1 and len(tasks) > 1:
         with ProcessPoolExecutor(max_workers=workers, **pool_initializer(_init_worker, (net,))) as pool:
-            futures = [pool.submit(_solve_in_worker, groups.branch[k], groups.gen[k], *(a[rows] for a in arrays),
+            futures = [pool.submit(_solve_in_worker, groups.branch[k], groups.gen[k],
+                                   None if groups.shunt is None else groups.shunt[k], *(a[rows] for a in arrays),
                                    _settings(powerflow, groups.rows[k].size)) for k, rows in tasks]
             for (k, rows), f in zip(tasks, futures):
                 collect(rows, f.result())

@@ -127,9 +127,11 @@ def _file_entry(path: str, table, with_solution: bool) -> dict[str, Any]:
 def _tables(sid: np.ndarray, data: dict, train_signatures) -> tuple:
     """The inputs and references tables of samples ``sid`` (a chunk or the whole split), and
     per sample whether its regime occurs in the training split (None without one)."""
-    # the per-sample state columns, when the design gives each sample one (single-outage designs)
+    # the per-sample state columns, when the design gives each sample one (single-outage designs;
+    # bus shunt flags: the year design with capacitor switching)
     t_in = inputs_table(sid, data["pd_mw"], data["qd_mvar"], kind=data.get("kind"),
-                        branch_in_service=data.get("branch_in_service"), gen_in_service=data.get("gen_in_service"))
+                        branch_in_service=data.get("branch_in_service"), gen_in_service=data.get("gen_in_service"),
+                        shunt_in_service=data.get("shunt_in_service"))
     ref_cols = dict(data)
     ref_cols["binding"] = [tuple(b.split(BINDING_SEP)) if b else () for b in data["binding"].tolist()]
     seen = None
@@ -162,7 +164,8 @@ def _finish(out: Path, part: Path, net: Network, job: Job, split: str, samples: 
     has_states = "branch_in_service" in data
     if has_states:  # every kept state is one the network allows (the worker solved on it)
         from ..network import check_states
-        check_states(net, data["branch_in_service"], data["gen_in_service"], sid)
+        check_states(net, data["branch_in_service"], data["gen_in_service"], sid,
+                     shunt_in_service=data.get("shunt_in_service"))
     t_in, t_ref, seen, binding = _tables(sid, data, _train_signatures(train))
     write_table(t_in, stage / INPUTS_FILE)
     write_table(t_ref, stage / REFERENCES_FILE)

@@ -25,7 +25,9 @@ class Loading:
     """One drawn loading: ``pd_mw``, ``qd_mvar`` shape (n_load,) [MW], [MVAr]; ``margin``
     (fraction of the maximum loadability left, NaN outside the edge design); the sample's state
     ``branch_in_service`` (n_branch,) and ``gen_in_service`` (n_gen,) bool, None for the
-    network as it is (every design but the single-outage one)."""
+    network as it is (every design but the single-outage one), and ``shunt_in_service``
+    (n_bus,) bool, None for the network's own bus shunts (every design but the year design with
+    capacitor switching)."""
 
     pd_mw: np.ndarray
     qd_mvar: np.ndarray
@@ -33,6 +35,7 @@ class Loading:
     kind: str = ""  # which branch of a mixed design drew it (prefixes rejection reasons)
     branch_in_service: np.ndarray | None = None
     gen_in_service: np.ndarray | None = None
+    shunt_in_service: np.ndarray | None = None
 
 
 def sample_rng(seed: int, slot: int, attempt: int, stream: tuple[int, ...] = ()) -> np.random.Generator:

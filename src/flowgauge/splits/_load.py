@@ -15,7 +15,7 @@ from ..errors import InputError
 from ..network import Network, bundled_names, load_network
 from ._manifest import SPLIT_NAMES, network_hash, read_manifest
 from ._store import (MANIFEST_FILE, References, inputs_from_table, kinds_from_table,
-                     read_table, references_from_table, state_from_table)
+                     read_table, references_from_table, shunt_state_from_table, state_from_table)
 
 __all__ = ["Split", "splits_root", "list_splits", "find_split", "resolve_split", "load_split",
            "split_network"]
@@ -102,7 +102,9 @@ class Split:
     ``bus_id``, ``gen_id``, ``load_id``, ``branch_id``: the element order of every array.
     ``branch_in_service`` (S, n_branch), ``gen_in_service`` (S, n_gen) bool: per-sample states,
     None for splits whose samples all run on the network as it is (:meth:`state` then gives the
-    intact state).
+    intact state). ``shunt_in_service`` (S, n_bus) bool: which bus shunts are connected in each
+    sample (splits whose design switches capacitor banks, for example ``test-year`` on
+    ``activsg2000``), None when every sample has the network's shunts.
     """
 
     path: Path
@@ -114,6 +116,7 @@ class Split:
     kind: np.ndarray | None = field(default=None)  # (S,) str: the kind of draw (splits since format 2)
     branch_in_service: np.ndarray | None = field(default=None)
     gen_in_service: np.ndarray | None = field(default=None)
+    shunt_in_service: np.ndarray | None = field(default=None)
 
     @property
     def has_states(self) -> bool:
@@ -138,12 +141,19 @@ class Split:
         return check_state(self.network, self.branch_in_service[row], self.gen_in_service[row],
                            sample=int(self.sample_id[row]))
 
+    def shunt_state(self, i: int) -> np.ndarray | None:
+        """The bus shunt flags of the sample in row ``i`` (n_bus,) bool, or None when the split
+        keeps the network's shunts."""
+        row = self._row(i)
+        return None if self.shunt_in_service is None else self.shunt_in_service[row].copy()
+
     def state_network(self, i: int) -> Network:
         """The network of the sample in row ``i`` (:func:`flowgauge.network._state.network_in_state`):
         same shapes and element order, the solvers run on it unchanged."""
         from ..network._state import network_in_state
         br, gen = self.state(i)
-        return network_in_state(self.network, br, gen, sample=int(self.sample_id[self._row(i)]))
+        return network_in_state(self.network, br, gen, sample=int(self.sample_id[self._row(i)]),
+                                shunt_in_service=self.shunt_state(i))
 
     def graph(self, i: int):
         """The sample in row ``i`` as a graph (:class:`flowgauge.network._state.GraphView`): the
@@ -154,7 +164,7 @@ class Split:
         row = self._row(i)
         br, gen = self.state(row)
         return sample_graph(self.network, br, self.pd_mw[row], self.qd_mvar[row], gen,
-                            sample=int(self.sample_id[row]))
+                            sample=int(self.sample_id[row]), shunt_in_service=self.shunt_state(row))
 
     @property
     def name(self) -> str:
@@ -202,7 +212,7 @@ class Split:
     def to_pandas(self):
         """One row per sample, one column per element value (``pd_mw:<load id>``, ``pg_mw:<gen id>``,
         ``vm_pu:<bus id>``, ..., and ``branch_in_service:<branch id>``, ``gen_in_service:<gen id>``
-        for splits with per-sample states) plus the per-sample reference columns."""
+        (and ``shunt_in_service:<bus id>``) for splits with per-sample states) plus the per-sample reference columns."""
         import pandas as pd
         blocks = [pd.DataFrame({"sample_id": self.sample_id})]
         def block(prefix, arr, ids):
@@ -211,6 +221,8 @@ class Split:
         if self.has_states:  # per-sample states: one bool column per branch and generator
             blocks += [block("branch_in_service", self.branch_in_service, self.branch_id),
                        block("gen_in_service", self.gen_in_service, self.gen_id)]
+        if self.shunt_in_service is not None:
+            blocks.append(block("shunt_in_service", self.shunt_in_service, self.bus_id))
         r = self.references
         if r is not None:
             blocks += [block("pg_mw", r.pg_mw, self.gen_id), block("qg_mvar", r.qg_mvar, self.gen_id),
@@ -237,6 +249,7 @@ def load_split(network_or_path: str | Path, split: str | None = None, *, referen
     kind = kinds_from_table(table)
     state = state_from_table(table, inputs_path, len(manifest["elements"]["branch_id"]),
                              len(manifest["elements"]["gen_id"]))
+    shunt = shunt_state_from_table(table, inputs_path, len(manifest["elements"]["bus_id"]))
     n_load = len(manifest["elements"]["load_id"])
     if pd_mw.shape != (manifest["samples"], n_load):
         raise InputError(f"expected pd_mw of shape ({manifest['samples']}, {n_load}) as the manifest says, "
@@ -248,4 +261,4 @@ def load_split(network_or_path: str | Path, split: str | None = None, *, referen
     return Split(path=folder, manifest=manifest, sample_id=sample_id, pd_mw=pd_mw, qd_mvar=qd_mvar,
                  references=refs, kind=kind,
                  branch_in_service=None if state is None else state[0],
-                 gen_in_service=None if state is None else state[1])
+                 gen_in_service=None if state is None else state[1], shunt_in_service=shunt)

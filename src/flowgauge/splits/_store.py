@@ -23,7 +23,8 @@ __all__ = [
     "INPUTS_FILE", "REFERENCES_FILE", "MANIFEST_FILE", "STORED_DIGITS",
     "References", "round_array", "inputs_table", "references_table", "table_columns",
     "columns_hash", "solution_hash", "write_table", "read_table", "inputs_from_table",
-    "references_from_table", "kinds_from_table", "state_from_table", "STATE_COLUMNS", "BINDING_SEP",
+    "references_from_table", "kinds_from_table", "state_from_table", "shunt_state_from_table", "STATE_COLUMNS",
+    "SHUNT_COLUMN", "BINDING_SEP",
 ]
 
 INPUTS_FILE = "inputs.parquet"
@@ -39,6 +40,8 @@ TIMING_COLUMNS = ("solve_seconds",)
 
 # Optional inputs columns: per-sample in-service flags in the manifest's branch / generator order.
 STATE_COLUMNS = ("branch_in_service", "gen_in_service")
+# Optional beside them: per-sample flags of the bus shunts, in the manifest's bus order.
+SHUNT_COLUMN = "shunt_in_service"
 
 _VECTOR_REF = ("pg_mw", "qg_mvar", "vm_pu", "va_deg")
 _SCALAR_REF_FLOAT = ("objective_per_h", "max_p_mismatch_mw", "max_q_mismatch_mvar",
@@ -104,12 +107,13 @@ def _fixed_bool(matrix: np.ndarray) -> pa.FixedSizeListArray:
 
 
 def inputs_table(sample_id: np.ndarray, pd_mw: np.ndarray, qd_mvar: np.ndarray, kind=None,
-                 branch_in_service: np.ndarray | None = None, gen_in_service: np.ndarray | None = None) -> pa.Table:
+                 branch_in_service: np.ndarray | None = None, gen_in_service: np.ndarray | None = None,
+                 shunt_in_service: np.ndarray | None = None) -> pa.Table:
     """Inputs table: ``sample_id`` (S,), ``pd_mw``, ``qd_mvar`` (S, n_load) [MW], [MVAr], and
     optionally ``kind`` (S,) str: which kind of draw of its design produced each sample, and the
     per-sample state ``branch_in_service`` (S, n_branch) and ``gen_in_service`` (S, n_gen) bool
-    (both or neither). Without the optional arguments the table is exactly that of splits
-    written before per-sample states."""
+    (both or neither), with, optionally, ``shunt_in_service`` (S, n_bus) bool. Without the
+    optional arguments the table is exactly that of splits written before per-sample states."""
     data = {
         "sample_id": pa.array(np.asarray(sample_id, np.int64)),
         "pd_mw": _fixed(round_array(pd_mw)),
@@ -119,9 +123,15 @@ def inputs_table(sample_id: np.ndarray, pd_mw: np.ndarray, qd_mvar: np.ndarray, 
         data["kind"] = pa.array([str(k) for k in kind], pa.string())
     if (branch_in_service is None) != (gen_in_service is None):
         raise InputError("give both branch_in_service and gen_in_service, or neither", where="inputs_table")
+    if shunt_in_service is not None and branch_in_service is None:
+        raise InputError("shunt_in_service needs branch_in_service and gen_in_service", where="inputs_table")
     if branch_in_service is not None:
         n_s = len(data["sample_id"])
-        for name, flags in zip(STATE_COLUMNS, (branch_in_service, gen_in_service)):
+        names, values = list(STATE_COLUMNS), [branch_in_service, gen_in_service]
+        if shunt_in_service is not None:
+            names.append(SHUNT_COLUMN)
+            values.append(shunt_in_service)
+        for name, flags in zip(names, values):
             a = np.asarray(flags)
             if a.dtype.kind != "b" or a.ndim != 2 or a.shape[0] != n_s:
                 raise InputError(f"expected a bool array of shape ({n_s}, n), got {a.dtype} {a.shape}", where=name)
@@ -257,24 +267,38 @@ def state_from_table(table: pa.Table, path: Path, n_branch: int,
         missing = [n for n in STATE_COLUMNS if n not in have][0]
         raise InputError(f"column {have[0]} is present but {missing} is not (expected both or neither)",
                          where=str(path))
-    out = []
-    for name, n in zip(STATE_COLUMNS, (n_branch, n_gen)):
-        col = table.column(name)
-        t = col.type
-        if not ((pa.types.is_fixed_size_list(t) or pa.types.is_list(t) or pa.types.is_large_list(t))
-                and pa.types.is_boolean(t.value_type)):
-            raise InputError(f"expected a list of true/false flags per sample, got column type {t}",
-                             where=f"{path}: column {name}")
-        _check_state_widths(table, col, name, n, path)
-        try:
-            a = _column_array(col, name)
-        except InputError as exc:
-            raise InputError(exc.message, where=f"{path}: {exc.where}") from None
-        if a.shape != (table.num_rows, n):
-            raise InputError(f"expected {n} flags per sample (the manifest's element count), got shape "
-                             f"{a.shape}", where=f"{path}: column {name}")
-        out.append(a)
-    return out[0], out[1]
+    return tuple(_flag_column(table, name, n, path) for name, n in zip(STATE_COLUMNS, (n_branch, n_gen)))
+
+
+def shunt_state_from_table(table: pa.Table, path: Path, n_bus: int) -> np.ndarray | None:
+    """``shunt_in_service`` (S, n_bus) bool, or None for inputs without it. The column without
+    the branch and generator state columns, or of another type or width, raises
+    :class:`InputError`."""
+    if SHUNT_COLUMN not in table.column_names:
+        return None
+    if not all(n in table.column_names for n in STATE_COLUMNS):
+        raise InputError(f"column {SHUNT_COLUMN} is present but {' and '.join(STATE_COLUMNS)} are not "
+                         "(bus shunt flags are part of a per-sample state)", where=str(path))
+    return _flag_column(table, SHUNT_COLUMN, n_bus, path)
+
+
+def _flag_column(table: pa.Table, name: str, n: int, path: Path) -> np.ndarray:
+    """One column of per-sample flags as a bool array (S, n), checked."""
+    col = table.column(name)
+    t = col.type
+    if not ((pa.types.is_fixed_size_list(t) or pa.types.is_list(t) or pa.types.is_large_list(t))
+            and pa.types.is_boolean(t.value_type)):
+        raise InputError(f"expected a list of true/false flags per sample, got column type {t}",
+                         where=f"{path}: column {name}")
+    _check_state_widths(table, col, name, n, path)
+    try:
+        a = _column_array(col, name)
+    except InputError as exc:
+        raise InputError(exc.message, where=f"{path}: {exc.where}") from None
+    if a.shape != (table.num_rows, n):
+        raise InputError(f"expected {n} flags per sample (the manifest's element count), got shape "
+                         f"{a.shape}", where=f"{path}: column {name}")
+    return a
 
 
 def _check_state_widths(table: pa.Table, col: pa.ChunkedArray, name: str, n: int, path: Path) -> None:

@@ -106,9 +106,12 @@ def _check_states(folder: Path, m: dict, cols: dict, net) -> None:
     network allows (:func:`flowgauge.network.check_states`: an InputError names sample and element)."""
     from ..network import check_states
     from ._manifest import STATE_FORMAT_VERSION
-    from ._store import STATE_COLUMNS
+    from ._store import SHUNT_COLUMN, STATE_COLUMNS
     have = [c for c in STATE_COLUMNS if c in cols]
     path = str(folder / m["files"]["inputs"]["path"])
+    if SHUNT_COLUMN in cols and len(have) != len(STATE_COLUMNS):
+        raise IntegrityError(f"column {SHUNT_COLUMN} without {' and '.join(STATE_COLUMNS)} (bus shunt flags are "
+                             "part of a per-sample state)", where=path)
     if bool(have) != (m["format_version"] >= STATE_FORMAT_VERSION):
         what = "carry" if have else "carry no"
         raise IntegrityError(f"the inputs {what} per-sample states (columns {', '.join(STATE_COLUMNS)}), the "
@@ -118,7 +121,12 @@ def _check_states(folder: Path, m: dict, cols: dict, net) -> None:
         if len(have) != len(STATE_COLUMNS):
             raise IntegrityError(f"column {have[0]} without {[c for c in STATE_COLUMNS if c not in have][0]}",
                                  where=path)
-        check_states(net, cols["branch_in_service"], cols["gen_in_service"], cols["sample_id"])
+        shunt = cols.get(SHUNT_COLUMN)
+        if shunt is not None and shunt.shape != (m["samples"], len(m["elements"]["bus_id"])):
+            raise IntegrityError(f"column {SHUNT_COLUMN} has shape {shunt.shape}, the manifest says "
+                                 f"({m['samples']}, {len(m['elements']['bus_id'])})", where=path)
+        check_states(net, cols["branch_in_service"], cols["gen_in_service"], cols["sample_id"],
+                     shunt_in_service=shunt)
 
 
 def verify_split(path: str | Path) -> VerifyReport:

@@ -64,29 +64,30 @@ class _Tools:
     def solve(self, pd_mw: np.ndarray, qd_mvar: np.ndarray):
         return self.solver.solve(pd_mw, qd_mvar, start=None)
 
-    def state_solver(self, branch_in_service: np.ndarray, gen_in_service: np.ndarray):
+    def state_solver(self, branch_in_service: np.ndarray, gen_in_service: np.ndarray, shunt_in_service=None):
         """The AC-OPF of the network in this state, cached by the state's bytes."""
         from ..network import network_in_state
         from ..opf import ACOPF
         br = np.ascontiguousarray(branch_in_service, bool)
         gen = np.ascontiguousarray(gen_in_service, bool)
-        key = br.tobytes() + b"|" + gen.tobytes()
+        shunt = None if shunt_in_service is None else np.ascontiguousarray(shunt_in_service, bool)
+        key = br.tobytes() + b"|" + gen.tobytes() + (b"" if shunt is None else b"|" + shunt.tobytes())
         if key in self._states:
             self._states.move_to_end(key)
             return self._states[key]
-        solver = ACOPF(network_in_state(self.net, br, gen), self.settings)
+        solver = ACOPF(network_in_state(self.net, br, gen, shunt_in_service=shunt), self.settings)
         self._states[key] = solver
         if len(self._states) > STATE_SOLVERS:
             self._states.popitem(last=False)
         return solver
 
     def solve_in_state(self, pd_mw: np.ndarray, qd_mvar: np.ndarray, branch_in_service: np.ndarray,
-                       gen_in_service: np.ndarray):
+                       gen_in_service: np.ndarray, shunt_in_service=None):
         """The AC-OPF of the loading on the network in this state; binding labels (and the
         signature) without those of generators out."""
         from ..network import binding_in_state
         from ..opf._result import binding_signature
-        res = self.state_solver(branch_in_service, gen_in_service).solve(pd_mw, qd_mvar, start=None)
+        res = self.state_solver(branch_in_service, gen_in_service, shunt_in_service).solve(pd_mw, qd_mvar, start=None)
         binding = binding_in_state(res.binding, self.net, gen_in_service)
         return replace(res, binding=binding, signature=binding_signature(binding))
 
@@ -128,16 +129,22 @@ def reject_reason(res, acceptance: tuple) -> str | None:
 def _solve_slot(job: Job, tools, slot: int, rejected: Counter) -> tuple[Loading, Any]:
     for attempt in range(job.max_attempts):
         rng = sample_rng(job.seed, slot, attempt, job.stream)
-        if getattr(job.design, "uses_slot", False):  # designs that vary their kind by slot
+        if getattr(job.design, "uses_attempt", False):  # designs whose redraws change with the attempt
+            loading = job.design.draw(job.net, rng, tools, slot=slot, attempt=attempt)
+        elif getattr(job.design, "uses_slot", False):  # designs that vary their kind by slot
             loading = job.design.draw(job.net, rng, tools, slot=slot)
         else:
             loading = job.design.draw(job.net, rng, tools)
         if isinstance(loading, str):
             rejected[f"{loading}"] += 1
             continue
-        if loading.branch_in_service is not None:
-            res = tools.solve_in_state(loading.pd_mw, loading.qd_mvar, loading.branch_in_service,
-                                       loading.gen_in_service)
+        if loading.branch_in_service is not None or loading.shunt_in_service is not None:
+            from ..network import intact_state
+            br0, gen0 = intact_state(job.net)
+            res = tools.solve_in_state(loading.pd_mw, loading.qd_mvar,
+                                       br0 if loading.branch_in_service is None else loading.branch_in_service,
+                                       gen0 if loading.gen_in_service is None else loading.gen_in_service,
+                                       loading.shunt_in_service)
         else:
             res = tools.solve(loading.pd_mw, loading.qd_mvar)
         reason = reject_reason(res, job.acceptance)
@@ -167,6 +174,9 @@ def solve_chunk(job: Job, start: int, stop: int) -> dict[str, np.ndarray]:
                                                 np.asarray(l.branch_in_service, bool) for l in loads]),
                  "gen_in_service": np.stack([gen0 if l.gen_in_service is None else
                                              np.asarray(l.gen_in_service, bool) for l in loads])}
+        if getattr(job.design, "has_shunt_states", False):  # and bus shunt flags for designs that switch them
+            state["shunt_in_service"] = np.stack([np.ones(job.net.n_bus, bool) if l.shunt_in_service is None else
+                                                  np.asarray(l.shunt_in_service, bool) for l in loads])
     return {
         "slot": np.arange(start, stop, dtype=np.int64),
         "pd_mw": np.stack([l.pd_mw for l in loads]), "qd_mvar": np.stack([l.qd_mvar for l in loads]),

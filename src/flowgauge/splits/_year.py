@@ -20,6 +20,21 @@ minimum; losses only add load) is never drawn, and a day without a servable hour
 the day order. Their counts are recorded in the design's parameters. Each sample's ``kind`` is
 its month, ``month-01`` .. ``month-12``; the hour itself is recovered from its loads by
 :func:`hours_of_loadings`.
+
+Capacitor switching: on a network whose fixed capacitors (buses with ``bs_mvar > 0``) add up
+to more than the generators can absorb (the sum of their negative ``qmin_mvar``), the
+capacitors are sized for the peak and nothing can absorb their output in light hours. There
+each sample carries bus shunt flags (``shunt_in_service``): in every area, its capacitor banks
+are connected largest first (ties: bus order) as long as the connected total stays within the
+area's share of the hour (its total over its base total, at most 1) times the area's
+capacitors; the rest are switched out. Reactors (``bs_mvar < 0``) and banks at buses of an
+area the table does not list stay connected. :func:`capacitor_flags`. On such a network an
+hour must also exceed the summed minimum outputs by :data:`SWITCHED_LOAD_MARGIN` to be drawn:
+near that line every unit runs close to its minimum and most hours have no feasible AC-OPF
+(measured on ``activsg2000``, docs/splits.md "Year design"). And since whole days there can
+have no feasible hour as the units are committed, a sample whose first
+:data:`DAY_ATTEMPTS` draws on its day are rejected takes its further draws from every servable
+hour of the year.
 """
 
 from __future__ import annotations
@@ -41,7 +56,20 @@ from ..network._changes import AREA_COLUMNS, check_areas
 from ._designs import Loading
 
 __all__ = ["Year", "AreaScenario", "load_scenario", "scenario_path", "SCENARIO_DIR", "day_order",
-           "spread_area_loads", "hours_of_loadings"]
+           "spread_area_loads", "hours_of_loadings", "capacitor_flags", "needs_capacitor_switching"]
+
+# Hours within this share above the summed minimum outputs are left out where capacitors are
+# switched: on activsg2000, 12 of 14 random servable hours below the line had no feasible AC-OPF
+# with the banks switched, 2 of 26 above it (docs/splits.md, "Year design").
+SWITCHED_LOAD_MARGIN = 0.10
+# Where capacitors are switched, draws of a sample after this many rejected ones on its day take
+# any servable hour of the year (a build stopped at a May day of 2016 whose 25 hours drawn were
+# all infeasible).
+DAY_ATTEMPTS = 10
+SWITCHING_RULE = ("in each area, capacitor banks (bs_mvar > 0) connected largest first (ties: bus order) while the "
+                  "connected total stays within min(1, the area's total for the hour / its base total) times the "
+                  "area's capacitors; the rest switched out; reactors and banks outside the table's areas stay "
+                  "connected")
 
 SCENARIO_DIR = Path(__file__).resolve().parent.parent / "network" / "data" / "scenarios"
 FORMAT_NAME = "flowgauge-area-loads"
@@ -158,17 +186,56 @@ def hours_of_loadings(scenario: AreaScenario, net: Network, pd_mw: np.ndarray, r
     return out
 
 
+def needs_capacitor_switching(net: Network) -> bool:
+    """Whether the network's fixed capacitors add up to more than its generators can absorb
+    (sum of ``bs_mvar > 0`` against the sum of negative ``qmin_mvar``): then light hours need
+    banks switched out (module docstring)."""
+    bs = np.asarray(net.bs_mvar, float)
+    qmin = np.asarray(net.qmin_mvar, float)
+    return float(bs[bs > 0].sum()) > float(-qmin[qmin < 0].sum())
+
+
+def capacitor_flags(net: Network, bus_area: np.ndarray, areas: np.ndarray, share: np.ndarray) -> np.ndarray:
+    """Bus shunt flags (n_bus,) bool for one hour: ``bus_area`` (n_bus,) each bus's area number,
+    ``areas`` (A,) the table's areas, ``share`` (A,) each area's total for the hour over its base
+    total. In each area the capacitor banks are connected largest first (ties: bus order) while
+    the connected total stays within ``min(1, share)`` times the area's capacitors."""
+    bs = np.asarray(net.bs_mvar, float)
+    on = np.ones(net.n_bus, bool)
+    cap = bs > 0
+    for j, a in enumerate(np.asarray(areas).tolist()):
+        idx = np.flatnonzero(cap & (bus_area == a))
+        if idx.size == 0:
+            continue
+        idx = idx[np.lexsort((idx, -bs[idx]))]  # largest first, ties by bus position
+        target = min(max(float(share[j]), 0.0), 1.0) * float(bs[idx].sum())
+        on[idx] = np.cumsum(bs[idx]) <= target * (1.0 + 1e-12)
+    return on
+
+
 @dataclass(frozen=True, eq=False)
 class Year:
     """One sample per hour of a recorded year (module docstring); :meth:`fitted` reads the
     network's bundled area-load file and marks the hours the network can serve."""
 
     uses_slot: ClassVar[bool] = True
+    uses_attempt: ClassVar[bool] = True
     name: str = "year"
     scenario: AreaScenario | None = field(default=None, repr=False)
     load_area: np.ndarray | None = field(default=None, repr=False)
     servable: np.ndarray | None = field(default=None, repr=False)  # (H,) bool
     minimum_total_mw: float = float("nan")
+    bus_area: np.ndarray | None = field(default=None, repr=False)  # (n_bus,): set when capacitors are switched
+
+    @property
+    def has_states(self) -> bool:
+        """Samples carry a state (all branches and generators in, bus shunt flags) when the
+        design switches capacitors on this network."""
+        return self.bus_area is not None
+
+    @property
+    def has_shunt_states(self) -> bool:
+        return self.bus_area is not None
 
     def fitted(self, net: Network, solver=None) -> "Year":
         if self.scenario is not None:
@@ -183,11 +250,18 @@ class Year:
         # An hour whose total load is below the summed minimum outputs of the generators cannot
         # be served by the network as committed (losses only add load): it is left out.
         minimum = float(np.sum(net.pmin_mw))
-        servable = sc.load_mw.sum(axis=1) >= minimum
+        bus_area = None
+        margin = 0.0
+        if needs_capacitor_switching(net):
+            from ..network._changes import AREA_COLUMNS
+            bus_area = np.asarray(net.provenance[AREA_COLUMNS[sc.area_column]], np.int64)  # checked by check_areas
+            margin = SWITCHED_LOAD_MARGIN
+        servable = sc.load_mw.sum(axis=1) >= (1.0 + margin) * minimum
         if not servable.any():
-            raise InputError(f"no hour of {path.name} reaches the summed minimum outputs of the generators "
-                             f"({minimum:.1f} MW)", where=f"network {net.name!r}")
-        return replace(self, scenario=sc, load_area=load_area, servable=servable, minimum_total_mw=minimum)
+            raise InputError(f"no hour of {path.name} reaches {1.0 + margin:g} x the summed minimum outputs of the "
+                             f"generators ({minimum:.1f} MW)", where=f"network {net.name!r}")
+        return replace(self, scenario=sc, load_area=load_area, servable=servable, minimum_total_mw=minimum,
+                       bus_area=bus_area)
 
     def _need(self) -> AreaScenario:
         if self.scenario is None:
@@ -225,13 +299,34 @@ class Year:
             "hours_left_out": int((~self.servable).sum()), "days_left_out": int(days - self.days_used().size),
             "days": days, "first_days": self.days_used()[:8].tolist(),
             "kind": "month of the hour, month-01 .. month-12",
+            **({} if self.bus_area is None else self._switching_parameters(net)),
         }
 
-    def draw(self, net: Network, rng: np.random.Generator, solver=None, *, slot: int = 0) -> Loading:
+    def _switching_parameters(self, net: Network) -> dict[str, Any]:
+        bs, qmin = np.asarray(net.bs_mvar, float), np.asarray(net.qmin_mvar, float)
+        return {"capacitor_switching": SWITCHING_RULE,
+                "capacitor_switching_why": "the fixed capacitors exceed what the generators can absorb",
+                "capacitors_mvar": float(bs[bs > 0].sum()), "capacitor_banks": int((bs > 0).sum()),
+                "generators_absorb_mvar": float(-qmin[qmin < 0].sum()),
+                "servable": f"total load of the hour >= {1.0 + SWITCHED_LOAD_MARGIN:g} x summed minimum outputs of "
+                            "the generators (near the minimum, units have no room: measured mostly infeasible)",
+                "minimum_load_margin": SWITCHED_LOAD_MARGIN,
+                "hours_fallback": f"after {DAY_ATTEMPTS} rejected draws on its day, a sample's further draws take an "
+                                  "hour uniform among every servable hour of the year (from its stream)",
+                "day_attempts": DAY_ATTEMPTS}
+
+    def draw(self, net: Network, rng: np.random.Generator, solver=None, *, slot: int = 0, attempt: int = 0) -> Loading:
         sc = self._need()
-        day = self.day_of(slot)
-        hours = 24 * day + np.flatnonzero(self.servable[24 * day:24 * day + 24])
+        if self.bus_area is not None and attempt >= DAY_ATTEMPTS:  # the day has had its chances
+            hours = np.flatnonzero(self.servable)
+        else:
+            day = self.day_of(slot)
+            hours = 24 * day + np.flatnonzero(self.servable[24 * day:24 * day + 24])
         hour = int(hours[int(rng.integers(hours.size))])
         pd, qd = spread_area_loads(net.pd_mw, net.qd_mvar, self.load_area, sc.areas, sc.load_mw[hour])
         month = (datetime(sc.year, 1, 1) + timedelta(hours=hour)).month
-        return Loading(pd, qd, kind=f"month-{month:02d}")
+        shunt = None
+        if self.bus_area is not None:
+            base = np.bincount(np.searchsorted(sc.areas, self.load_area), weights=net.pd_mw, minlength=sc.areas.size)
+            shunt = capacitor_flags(net, self.bus_area, sc.areas, sc.load_mw[hour] / base)
+        return Loading(pd, qd, kind=f"month-{month:02d}", shunt_in_service=shunt)
