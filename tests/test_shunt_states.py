@@ -6,6 +6,7 @@ design's capacitor switching on the 2,000-bus ACTIVSg case (case data from the P
 from __future__ import annotations
 
 import warnings
+from pathlib import Path
 
 import numpy as np
 import pyarrow as pa
@@ -103,14 +104,14 @@ def test_flags_at_buses_without_a_shunt_change_nothing_and_all_in_is_the_network
 def test_bad_shunt_flags_give_one_message_naming_sample_and_bus(nets):
     net = nets["ieee14"]
     br, gen = intact_state(net)
-    with pytest.raises(InputError, match=r"expected 14 flags \(one per bus shunt.*got shape \(13,\)") as exc:
+    with pytest.raises(InputError, match=r"expected 14 flags \(one per bus, in the network's bus order\), got shape \(13,\)") as exc:
         check_shunt_flags(net, np.ones(13, bool), sample=4)
     assert exc.value.where == "sample 4: shunt_in_service"
     bad = np.ones(net.n_bus, int)
     bad[8] = 3
     with pytest.raises(InputError, match=r"expected true/false \(or 1/0\), got 3") as exc:
         network_in_state(net, br, gen, shunt_in_service=bad, sample=4)
-    assert exc.value.where == "sample 4: shunt_in_service, bus shunt 8 (id 9)"
+    assert exc.value.where == "sample 4: shunt_in_service, bus 8 (id 9)"
     many = np.ones((3, net.n_bus), bool)
     with pytest.raises(InputError, match=r"expected shape \(2, 14\)") as exc:
         check_states(net, np.ones((2, net.n_branch), bool), np.ones((2, net.n_gen), bool), np.arange(2),
@@ -275,3 +276,40 @@ def test_reference_on_the_year_split_restores_on_its_banks_and_not_without(year_
     assert every_bank_in["restoration_failed"].all()  # the case's capacitors all in: no feasible point
     with pytest.raises(InputError, match="bus shunt flags are part of a per-sample state"):
         score_arrays(s.network, shunt_in_service=s.shunt_in_service[rows], **kw)
+
+
+def _year_copy_with_flags(s, folder, shunt):
+    """A copy of the year split with other shunt flags, its manifest sealed again (so only the
+    flags are wrong)."""
+    import json
+    import shutil
+    from flowgauge.splits._builder import _file_entry
+    from flowgauge.splits._manifest import seal_manifest, write_manifest
+    from flowgauge.splits._store import write_table
+    shutil.copytree(s.path, folder)
+    t = inputs_table(s.sample_id, s.pd_mw, s.qd_mvar, kind=s.kind, branch_in_service=s.branch_in_service,
+                     gen_in_service=s.gen_in_service, shunt_in_service=shunt)
+    write_table(t, folder / "inputs.parquet")
+    m = json.loads((folder / "manifest.json").read_text())
+    m["files"]["inputs"] = _file_entry("inputs.parquet", t, False)
+    write_manifest(folder / "manifest.json", seal_manifest(m))
+    return folder
+
+
+def test_bad_shunt_flags_in_a_split_are_one_clear_error(year_split, tmp_path, capsys):
+    from flowgauge.cli import main
+    s = year_split
+    short = _year_copy_with_flags(s, tmp_path / "short" / "activsg2000" / "test-year", s.shunt_in_service[:, :-1])
+    pred = tmp_path / "dc.parquet"
+    board = Path(__file__).resolve().parents[1] / "leaderboard" / "submissions" / "activsg2000" / "test-year"
+    import shutil
+    shutil.copy(board / "dc-opf.parquet", pred)
+    assert main(["score", str(pred), "--split", str(short)]) == 2
+    err = capsys.readouterr().err
+    assert "sample 0: column shunt_in_service" in err and "expected 2000 flags" in err and "got 1999" in err
+    assert "Traceback" not in err and len(err.strip().splitlines()) <= 2
+    assert not (tmp_path / "dc.scorecard.json").exists()
+    code = main(["splits", "verify", str(short)])
+    err = capsys.readouterr().err
+    assert code == 3 and "column shunt_in_service has shape (200, 1999), the manifest says (200, 2000)" in err
+    assert "Traceback" not in err

@@ -47,7 +47,7 @@ def _sample_prefix(sample) -> str:
 
 
 def _element(net: Network, table: str, pos: int) -> str:
-    ids = {"branch": net.branch_id, "generator": net.gen_id, "bus": net.bus_id, "bus shunt": net.bus_id}[table]
+    ids = {"branch": net.branch_id, "generator": net.gen_id, "bus": net.bus_id}[table]
     return f"{table} {pos} (id {int(ids[pos])})"
 
 
@@ -105,7 +105,7 @@ def check_state(net: Network, branch_in_service, gen_in_service, *, sample=None)
 def check_shunt_flags(net: Network, shunt_in_service, *, sample=None) -> np.ndarray:
     """``shunt_in_service`` as a bool array (a copy), shape (n_bus,): one flag per bus, in the
     network's bus order (bool, or integers 0 and 1). Errors name ``sample``, the field and the bus."""
-    return _flags(net, shunt_in_service, "shunt_in_service", "bus shunt", net.n_bus, sample)
+    return _flags(net, shunt_in_service, "shunt_in_service", "bus", net.n_bus, sample)
 
 
 # ---- topology rules ----------------------------------------------------------------------
