@@ -7,7 +7,6 @@ from __future__ import annotations
 
 import functools
 import json
-import shutil
 import warnings
 from dataclasses import replace
 from pathlib import Path
@@ -22,7 +21,7 @@ from flowgauge.scoring import REACTIVE_LIMITS_PROFILE, STRICT_PROFILE, score
 from flowgauge.splits import load_split
 from flowgauge.submission import write_predictions
 
-from test_scoring_support import MODEL, _root, write_reference
+from test_scoring_support import MODEL, _root, split_copy_with_states, write_reference
 
 PP_OPTIONS = dict(VERBOSE=0, OUT_ALL=0)
 SCHEMA = json.loads((Path(__file__).parents[1] / "src/flowgauge/schema/scorecard.schema.json")
@@ -225,17 +224,7 @@ def test_scorecards_are_the_same_bytes_for_one_and_two_workers_and_dask(sp, inta
 
 def _damaged(sp, tmp_path, br, gen):
     """A copy of the split with other flags, its manifest sealed again (so only the flags are wrong)."""
-    from flowgauge.splits._builder import _file_entry
-    from flowgauge.splits._manifest import seal_manifest, write_manifest
-    from flowgauge.splits._store import inputs_table, write_table
-    folder = tmp_path / "ieee14" / "test-id"
-    shutil.copytree(sp.path, folder)
-    t = inputs_table(sp.sample_id, sp.pd_mw, sp.qd_mvar, kind=sp.kind, branch_in_service=br, gen_in_service=gen)
-    write_table(t, folder / "inputs.parquet")
-    m = json.loads((folder / "manifest.json").read_text())
-    m["files"]["inputs"] = _file_entry("inputs.parquet", t, False)
-    write_manifest(folder / "manifest.json", seal_manifest(m))
-    return folder
+    return split_copy_with_states(sp, tmp_path / "ieee14" / "test-id", br, gen)
 
 
 def test_bad_flags_in_a_split_are_one_clear_error(sp, tmp_path, capsys):

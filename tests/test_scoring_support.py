@@ -45,3 +45,20 @@ def write_reference(sp, path: Path, *, full: bool = True, format: str | None = N
     write_predictions(sp, pg_mw=r.pg_mw, vm_pu=r.vm_pu, va_deg=r.va_deg if full else None,
                       qg_mvar=r.qg_mvar if full else None, model=MODEL, path=path, format=format)
     return path
+
+
+def split_copy_with_states(sp, folder: Path, branch, gen, shunt=None) -> Path:
+    """A copy of split ``sp`` in ``folder`` with other per-sample state flags, its manifest
+    sealed again (so only the flags are wrong)."""
+    import json
+    from flowgauge.splits._builder import _file_entry
+    from flowgauge.splits._manifest import seal_manifest, write_manifest
+    from flowgauge.splits._store import inputs_table, write_table
+    shutil.copytree(sp.path, folder)
+    t = inputs_table(sp.sample_id, sp.pd_mw, sp.qd_mvar, kind=sp.kind, branch_in_service=branch,
+                     gen_in_service=gen, shunt_in_service=shunt)
+    write_table(t, folder / "inputs.parquet")
+    m = json.loads((folder / "manifest.json").read_text())
+    m["files"]["inputs"] = _file_entry("inputs.parquet", t, False)
+    write_manifest(folder / "manifest.json", seal_manifest(m))
+    return folder

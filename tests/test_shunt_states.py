@@ -278,28 +278,12 @@ def test_reference_on_the_year_split_restores_on_its_banks_and_not_without(year_
         score_arrays(s.network, shunt_in_service=s.shunt_in_service[rows], **kw)
 
 
-def _year_copy_with_flags(s, folder, shunt):
-    """A copy of the year split with other shunt flags, its manifest sealed again (so only the
-    flags are wrong)."""
-    import json
-    import shutil
-    from flowgauge.splits._builder import _file_entry
-    from flowgauge.splits._manifest import seal_manifest, write_manifest
-    from flowgauge.splits._store import write_table
-    shutil.copytree(s.path, folder)
-    t = inputs_table(s.sample_id, s.pd_mw, s.qd_mvar, kind=s.kind, branch_in_service=s.branch_in_service,
-                     gen_in_service=s.gen_in_service, shunt_in_service=shunt)
-    write_table(t, folder / "inputs.parquet")
-    m = json.loads((folder / "manifest.json").read_text())
-    m["files"]["inputs"] = _file_entry("inputs.parquet", t, False)
-    write_manifest(folder / "manifest.json", seal_manifest(m))
-    return folder
-
-
 def test_bad_shunt_flags_in_a_split_are_one_clear_error(year_split, tmp_path, capsys):
     from flowgauge.cli import main
     s = year_split
-    short = _year_copy_with_flags(s, tmp_path / "short" / "activsg2000" / "test-year", s.shunt_in_service[:, :-1])
+    from test_scoring_support import split_copy_with_states
+    short = split_copy_with_states(s, tmp_path / "short" / "activsg2000" / "test-year", s.branch_in_service,
+                                   s.gen_in_service, s.shunt_in_service[:, :-1])
     pred = tmp_path / "dc.parquet"
     board = Path(__file__).resolve().parents[1] / "leaderboard" / "submissions" / "activsg2000" / "test-year"
     import shutil
