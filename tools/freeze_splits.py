@@ -47,18 +47,19 @@ LARGE = ["activsg200", "pegase1354", "activsg2000", "pegase2869"]
 LARGE_COUNTS = {
     "activsg200": {"train": 300, "test-id": 150, "test-ood": 150, "test-edge": 150, "test-year": 300},
     # test-id and test-edge grown from 40 to 200 samples on 2026-12-02, beside the train split
-    # rebuilt from its recipe. No test-ood: 9 of 10 outside draws were rejected at first (low
-    # power factors have no feasible AC-OPF), and a 40-sample build on 2026-12-02 stopped at
-    # sample 10 after 80 draws in a row were rejected (77 of them loadability-infeasible)
-    "pegase1354": {"train": 60, "test-id": 200, "test-edge": 200},
+    # rebuilt from its recipe. test-ood: a 40-sample build with the concentrated kind stopped at
+    # sample 10 (a concentrated slot) after 80 draws in a row were rejected (77 of them
+    # loadability-infeasible); built later that day with the hotspot kind, which replaces the
+    # concentrated kind above 1,000 buses (docs/splits.md, "outside")
+    "pegase1354": {"train": 60, "test-id": 200, "test-ood": 200, "test-edge": 200},
     # no test-ood yet: a 30-sample build had not finished its first chunk of 10 after 14
     # minutes with 2 workers (outside draws are rejected even more often; docs/splits.md);
     # test-edge is cheap here (150 in 1,349 s)
     # test-year added on 2026-12-02 once samples could carry switched capacitor banks (built
     # without the train split, whose recipe does not rebuild on an AVX-512 machine)
     "activsg2000": {"train": 40, "test-id": 60, "test-edge": 150, "test-year": 200},
-    # the same counts as activsg2000; no test-ood (not tried here; see pegase1354)
-    "pegase2869": {"train": 40, "test-id": 60, "test-edge": 40},
+    # test-ood (hotspot kind) added later on 2026-12-02, beside the train split rebuilt from its recipe
+    "pegase2869": {"train": 40, "test-id": 60, "test-ood": 60, "test-edge": 40},
 }
 SEEDS["test-year"] = 6006
 # Single-outage splits (one branch or generator out per sample) on these networks, built after

@@ -291,6 +291,11 @@ class Spanning:
 
 
 _OUTSIDE_KINDS = ("power-factor", "concentrated", "unseen-regime")
+# On networks of more than LARGE_NETWORK_BUSES buses the middle kind is "hotspot": there a
+# concentrated direction has no feasible loading at any scale (the summed minimum outputs alone,
+# 31 % of the base load on pegase1354, cannot be carried by a few buses: 10 of 10 draws
+# loadability-infeasible), while a hotspot on top of the base pattern is (8 of 12 converged).
+_LARGE_OUTSIDE_KINDS = ("power-factor", "hotspot", "unseen-regime")
 
 
 @dataclass(frozen=True, eq=False)
@@ -306,6 +311,13 @@ class Outside:
       lighter loadings are infeasible on networks with minimum outputs or heavy line charging.)
     - ``unseen-regime``: a steered draw kept only when its binding-limit regime never occurs in
       the training split (``train_regimes``), the pilot weighted toward regimes absent from it.
+
+    On networks of more than ``LARGE_NETWORK_BUSES`` buses, ``hotspot`` replaces
+    ``concentrated``: every load keeps ``1 - a`` of its base pattern and a share ``a`` (uniform
+    in ``hotspot_share``) of the direction is spread by Gamma factors of shape k in
+    ``concentrated``, so a few buses carry spikes on top of an even floor, at a share of the
+    extent in the training range. Training's independent Gamma factors give either an even
+    pattern without spikes (large k) or spikes with most loads near zero (small k), never both.
     """
 
     uses_slot: ClassVar[bool] = True
@@ -315,6 +327,7 @@ class Outside:
     low_power_factor: tuple[float, float] = (0.6, 0.8)
     leading_power_factor: tuple[float, float] = (0.9, 0.99)
     concentrated: tuple[float, float] = (0.1, 0.3)
+    hotspot_share: tuple[float, float] = (0.15, 0.3)
     train_regimes: frozenset = frozenset()
     train_split_hash: str = ""
 
@@ -324,15 +337,23 @@ class Outside:
     def with_train(self, regimes, split_hash: str) -> "Outside":
         return replace(self, train_regimes=frozenset(str(r) for r in regimes), train_split_hash=split_hash)
 
+    @staticmethod
+    def kinds(net: Network) -> tuple[str, ...]:
+        return _LARGE_OUTSIDE_KINDS if net.n_bus > LARGE_NETWORK_BUSES else _OUTSIDE_KINDS
+
     def parameters(self, net: Network) -> dict[str, Any]:
-        return {"kinds": list(_OUTSIDE_KINDS), "kind_of_slot": "slot % 3 in kinds order",
+        large = net.n_bus > LARGE_NETWORK_BUSES
+        return {"kinds": list(self.kinds(net)), "kind_of_slot": "slot % 3 in kinds order",
                 "low_power_factor": list(self.low_power_factor),
                 "leading_power_factor": list(self.leading_power_factor), "concentrated": list(self.concentrated),
+                **({"hotspot_share": list(self.hotspot_share),
+                    "hotspot": "weights (1 - a) x base + a x (base x Gamma(k, 1/k) factors, rescaled to the base "
+                               "total), a uniform in hotspot_share, k log-uniform in concentrated"} if large else {}),
                 "train_split_hash": self.train_split_hash, "train_regimes": len(self.train_regimes),
                 "spanning": self.spanning.parameters(net)}
 
     def draw(self, net: Network, rng, solver=None, slot: int = 0) -> Loading | str:
-        kind = _OUTSIDE_KINDS[slot % 3]
+        kind = self.kinds(net)[slot % 3]
         s = self.spanning
         if kind == "unseen-regime":
             if not self.train_regimes:
@@ -341,6 +362,15 @@ class Outside:
             unseen = ~np.isin(s.pilot["regime"], list(self.train_regimes))
             prob = s.pilot["probability"] * np.where(unseen, 20.0, 1.0)
             return s.steered(net, rng, solver, prob / prob.sum(), kind="unseen-regime")
+        if kind == "hotspot":
+            k = _loguniform(rng, self.concentrated)
+            g = rng.gamma(k, 1.0 / k, net.n_load)
+            a = float(rng.uniform(*self.hotspot_share))
+            b = _base_weights(net)
+            hot = b * g * (float(b.sum()) / max(float(np.sum(b * g)), 1e-300))  # same total as b
+            w = (1.0 - a) * b + a * hot  # a share a of the direction's total sits on the spikes
+            pf = rng.uniform(s.power_factor[0], s.power_factor[1], net.n_load)
+            return s._along(net, w, pf, float(rng.uniform(*s.fraction)), solver, kind)
         if kind == "concentrated":
             k = _loguniform(rng, self.concentrated)
             w = _base_weights(net) * rng.gamma(k, 1.0 / k, net.n_load)
