@@ -6,7 +6,6 @@ design's capacitor switching on the 2,000-bus ACTIVSg case (case data from the P
 from __future__ import annotations
 
 import warnings
-from pathlib import Path
 
 import numpy as np
 import pyarrow as pa
@@ -284,16 +283,27 @@ def test_bad_shunt_flags_in_a_split_are_one_clear_error(year_split, tmp_path, ca
     from test_scoring_support import split_copy_with_states
     short = split_copy_with_states(s, tmp_path / "short" / "activsg2000" / "test-year", s.branch_in_service,
                                    s.gen_in_service, s.shunt_in_service[:, :-1])
-    pred = tmp_path / "dc.parquet"
-    board = Path(__file__).resolve().parents[1] / "leaderboard" / "submissions" / "activsg2000" / "test-year"
-    import shutil
-    shutil.copy(board / "dc-opf.parquet", pred)
+    from test_scoring_support import write_reference
+    pred = write_reference(s, tmp_path / "ref.parquet", format="parquet")
     assert main(["score", str(pred), "--split", str(short)]) == 2
     err = capsys.readouterr().err
     assert "sample 0: column shunt_in_service" in err and "expected 2000 flags" in err and "got 1999" in err
     assert "Traceback" not in err and len(err.strip().splitlines()) <= 2
-    assert not (tmp_path / "dc.scorecard.json").exists()
+    assert not (tmp_path / "ref.scorecard.json").exists()
     code = main(["splits", "verify", str(short)])
     err = capsys.readouterr().err
     assert code == 3 and "column shunt_in_service has shape (200, 1999), the manifest says (200, 2000)" in err
     assert "Traceback" not in err
+
+
+def test_the_reference_scores_as_solved_on_the_whole_year_split(year_split, tmp_path):
+    import json
+    from flowgauge.cli import main
+    from test_scoring_support import write_reference
+    pred = write_reference(year_split, tmp_path / "ref.parquet", format="parquet")
+    assert main(["score", str(pred), "--split", str(year_split.path), "--workers", "2",
+                 "--out", str(tmp_path / "ref.scorecard.json")]) == 0
+    agg = json.loads((tmp_path / "ref.scorecard.json").read_text())["aggregates"]
+    # every hour's reference restores within every limit on its own banks, at its own cost
+    assert agg["restoration_failure_rate"] == 0.0 and agg["solved_share"] == 1.0
+    assert sorted(agg["by_kind"]) == [f"month-{m:02d}" for m in range(1, 13)]
