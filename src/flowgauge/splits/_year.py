@@ -253,7 +253,6 @@ class Year:
         bus_area = None
         margin = 0.0
         if needs_capacitor_switching(net):
-            from ..network._changes import AREA_COLUMNS
             bus_area = np.asarray(net.provenance[AREA_COLUMNS[sc.area_column]], np.int64)  # checked by check_areas
             margin = SWITCHED_LOAD_MARGIN
         servable = sc.load_mw.sum(axis=1) >= (1.0 + margin) * minimum
