@@ -307,3 +307,24 @@ def test_the_reference_scores_as_solved_on_the_whole_year_split(year_split, tmp_
     # every hour's reference restores within every limit on its own banks, at its own cost
     assert agg["restoration_failure_rate"] == 0.0 and agg["solved_share"] == 1.0
     assert sorted(agg["by_kind"]) == [f"month-{m:02d}" for m in range(1, 13)]
+
+
+def test_splits_show_counts_the_states(year_split, capsys):
+    from flowgauge.cli import main
+    from flowgauge.splits._summary import summarize_split
+    s = year_split
+    caps = np.asarray(s.network.bs_mvar) != 0
+    out = (~s.shunt_in_service[:, caps]).sum(axis=1)
+    text = summarize_split(s.path).states
+    assert text == (f"a branch out in 0, a generator out in 0, bus shunts switched out in {int((out > 0).sum())} "
+                    f"({out.min()}-{out.max()} of {int(caps.sum())}, median {float(np.median(out)):g}) "
+                    f"of {s.n_samples} samples")
+    # the single-outage split of ieee14: every sample has exactly one element out
+    n1 = load_split("ieee14", "test-n1")
+    br = (np.asarray(n1.network.in_service) & ~n1.branch_in_service).any(axis=1).sum()
+    gen = (~n1.gen_in_service).any(axis=1).sum()
+    assert br + gen == n1.n_samples  # one element out per sample
+    assert summarize_split(n1.path).states == f"a branch out in {br}, a generator out in {gen} of 300 samples"
+    assert summarize_split(splits_root() / "ieee14" / "test-id").states is None
+    assert main(["splits", "show", "activsg2000"]) == 0
+    assert "test-year states: a branch out in 0" in capsys.readouterr().out

@@ -193,6 +193,8 @@ def show(network) -> None:
                   _fmt(s.regime_seen_in_train, True))
         if s.kinds:
             kinds.append(f"{name} kinds: " + ", ".join(f"{k} {v}" for k, v in s.kinds.items()))
+        if s.states:
+            kinds.append(f"{name} states: {s.states}")
         if s.coverage_from == "references":
             computed.append(name)
         if s.rejected:

@@ -38,7 +38,9 @@ class SplitSummary:
     (None for splits written without kinds); ``regime_seen_in_train``: share of samples whose
     regime occurs in the training split (None for training splits, or when no training split
     is known); ``coverage_from``: ``"manifest"`` (recorded at build time), ``"references"``
-    (computed here, for manifests without it) or ``"none"``.
+    (computed here, for manifests without it) or ``"none"``. ``states``: for splits with
+    per-sample states, how many samples have a branch out, a generator out and bus shunts
+    switched out (with the range of shunts out), in words; None otherwise.
     """
 
     network: str
@@ -60,6 +62,7 @@ class SplitSummary:
     kinds: dict | None = None
     regime_seen_in_train: float | None = None
     coverage_from: str = "none"
+    states: str | None = None
 
     @property
     def regimes(self) -> int | None:
@@ -114,9 +117,25 @@ def split_coverage(s) -> tuple[dict | None, str]:
     return coverage(refs.signature, refs.binding, s.kind, _seen_in_train(s, refs)), "references"
 
 
+def _states_text(s, net) -> str | None:
+    """Per-sample states in words (None for a split without them)."""
+    if not s.has_states:
+        return None
+    br_out = (np.asarray(net.in_service, bool) & ~s.branch_in_service).any(axis=1)
+    gen_out = (~s.gen_in_service).any(axis=1)
+    parts = [f"a branch out in {int(br_out.sum())}", f"a generator out in {int(gen_out.sum())}"]
+    if s.shunt_in_service is not None:
+        has = (np.asarray(net.gs_mw) != 0) | (np.asarray(net.bs_mvar) != 0)
+        out = (~s.shunt_in_service[:, has]).sum(axis=1)
+        parts.append(f"bus shunts switched out in {int((out > 0).sum())} ({int(out.min())}-{int(out.max())} of "
+                     f"{int(has.sum())}, median {float(np.median(out)):g})")
+    return ", ".join(parts) + f" of {s.n_samples} samples"
+
+
 def summarize_split(path: str | Path) -> SplitSummary:
     s = load_split(path)
-    base = float(np.sum(split_network(s.manifest, s.path).pd_mw))
+    net = split_network(s.manifest, s.path)
+    base = float(np.sum(net.pd_mw))
     pct = np.sum(s.pd_mw, axis=1) / base * 100.0
     r = s.references
     cov, source = split_coverage(s)
@@ -144,4 +163,4 @@ def summarize_split(path: str | Path) -> SplitSummary:
                         family_shares=shares,
                         kinds=None if cov is None or cov.get("kinds") is None else dict(cov["kinds"]),
                         regime_seen_in_train=None if seen is None else float(seen),
-                        coverage_from=source)
+                        coverage_from=source, states=_states_text(s, net))
