@@ -56,7 +56,8 @@ from ..network._changes import AREA_COLUMNS, check_areas
 from ._designs import Loading
 
 __all__ = ["Year", "AreaScenario", "load_scenario", "scenario_path", "SCENARIO_DIR", "day_order",
-           "spread_area_loads", "hours_of_loadings", "capacitor_flags", "needs_capacitor_switching"]
+           "spread_area_loads", "area_base_mw", "hours_of_loadings", "capacitor_flags",
+           "needs_capacitor_switching"]
 
 # Hours within this share above the summed minimum outputs are left out where capacitors are
 # switched: on activsg2000, 12 of 14 random servable hours below the line had no feasible AC-OPF
@@ -156,6 +157,12 @@ def day_order(days: int) -> np.ndarray:
     return np.array(_day_order(int(days)), dtype=np.int64)
 
 
+def area_base_mw(pd0_mw: np.ndarray, load_area: np.ndarray, areas: np.ndarray) -> np.ndarray:
+    """Each area's base total (A,) [MW]: the sum of the base real loads ``pd0_mw`` (n_load,) of
+    the loads in it (``load_area`` (n_load,) their area numbers, ``areas`` (A,) sorted)."""
+    return np.bincount(np.searchsorted(areas, load_area), weights=pd0_mw, minlength=areas.size)
+
+
 def spread_area_loads(pd0_mw: np.ndarray, qd0_mvar: np.ndarray, load_area: np.ndarray, areas: np.ndarray,
                       area_total_mw: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Loads for given area totals: each load of area ``areas[j]`` scaled by
@@ -164,8 +171,7 @@ def spread_area_loads(pd0_mw: np.ndarray, qd0_mvar: np.ndarray, load_area: np.nd
     ``pd0_mw``, ``qd0_mvar``, ``load_area`` shape (n_load,); ``area_total_mw`` shape (A,) or
     (S, A) [MW]. Returns ``pd_mw``, ``qd_mvar`` of shape (n_load,) or (S, n_load)."""
     idx = np.searchsorted(areas, load_area)
-    base = np.bincount(idx, weights=pd0_mw, minlength=areas.size)
-    factor = np.asarray(area_total_mw, float) / base
+    factor = np.asarray(area_total_mw, float) / area_base_mw(pd0_mw, load_area, areas)
     f = factor[..., idx]
     return pd0_mw * f, qd0_mvar * f
 
@@ -280,7 +286,7 @@ class Year:
 
     def parameters(self, net: Network) -> dict[str, Any]:
         sc = self._need()
-        base = np.bincount(np.searchsorted(sc.areas, self.load_area), weights=net.pd_mw, minlength=sc.areas.size)
+        base = area_base_mw(net.pd_mw, self.load_area, sc.areas)
         days = sc.hours // 24
         return {
             "scenarios": sc.file, "scenarios_hash": sc.hash,
@@ -326,6 +332,6 @@ class Year:
         month = (datetime(sc.year, 1, 1) + timedelta(hours=hour)).month
         shunt = None
         if self.bus_area is not None:
-            base = np.bincount(np.searchsorted(sc.areas, self.load_area), weights=net.pd_mw, minlength=sc.areas.size)
-            shunt = capacitor_flags(net, self.bus_area, sc.areas, sc.load_mw[hour] / base)
+            share = sc.load_mw[hour] / area_base_mw(net.pd_mw, self.load_area, sc.areas)
+            shunt = capacitor_flags(net, self.bus_area, sc.areas, share)
         return Loading(pd, qd, kind=f"month-{month:02d}", shunt_in_service=shunt)
