@@ -89,13 +89,24 @@ def build(network, split, samples, seed, out, workers, scheduler, chunk, notes, 
                    "the content).")
 @click.option("--train", "train", type=click.Path(file_okay=False), default=None,
               help="The training split a test split was built beside (default: the sibling folder train).")
-def recipe(split, out, chunk, max_attempts, train) -> None:
+@click.option("--pilot/--no-pilot", "pilot", default=None,
+              help="Keep the spanning design's fitted pilot in the recipe, solved here and checked against the "
+                   "split's (--pilot: refuse if it differs; default: keep it if it is the split's).")
+@click.option("--workers", type=click.IntRange(min=1), default=1, show_default=True,
+              help="Local worker processes for solving the pilot.")
+def recipe(split, out, chunk, max_attempts, train, pilot, workers) -> None:
     """Write the recipe of SPLIT (a split folder, NETWORK/SPLIT or a split hash) to --out."""
     from ..splits import recipe_from_split, write_recipe
-    r = recipe_from_split(split, chunk=chunk, max_attempts=max_attempts, train=train)
+    from ..splits._recipe import pilot_hash_in
+    r = recipe_from_split(split, chunk=chunk, max_attempts=max_attempts, train=train, pilot=pilot, workers=workers)
     path = write_recipe(r, out)
+    kept = ""
+    if "pilot" in r:
+        kept = f", with its fitted pilot ({len(r['pilot']['slots'])} of {r['pilot']['draws']} draws kept)"
+    elif pilot is None and pilot_hash_in(r["design"]["parameters"]):
+        kept = ", without its pilot (solved here, it differs from the split's: a rebuild solves it again)"
     console.print(f"{shown(path, 200)}: recipe of {shown(r['network']['name'])}/{r['split']}, {r['samples']} samples, "
-                  f"identity_hash {r['expected']['identity_hash']}")
+                  f"identity_hash {r['expected']['identity_hash']}{kept}")
 
 
 @splits.command(short_help="Rebuild a split from its recipe and check every hash.")
@@ -110,27 +121,35 @@ def recipe(split, out, chunk, max_attempts, train) -> None:
               help="For a test split: the training split to build beside (default: the sibling folder train).")
 @click.option("--quiet", is_flag=True, help="No progress bar.")
 @click.option("--fresh", is_flag=True, help="Delete the chunks of an interrupted build of --out and start over.")
-def rebuild(recipe_file, out, workers, scheduler, network, train, quiet, fresh) -> None:
+@click.option("--exact", is_flag=True,
+              help="Every sample bit for bit (without it, a sample may differ from the recipe within the "
+                   "solver's tolerance, as on another CPU model, checked against the recipe's sketches).")
+def rebuild(recipe_file, out, workers, scheduler, network, train, quiet, fresh, exact) -> None:
     """Rebuild the split RECIPE describes (a recipe file or NETWORK/SPLIT under recipes/) and check it
-    against the recipe's hashes as it goes; exit 3 at the first difference, naming the sample and file."""
-    from ..splits import build_from_recipe
+    against the recipe as it goes; exit 3 at the first difference beyond the solver's tolerance (any difference
+    with --exact), naming the sample and file."""
+    from ..splits import Agreement, build_from_recipe
     progress = _Progress(quiet)
+    agreement = Agreement()
     try:
         m = build_from_recipe(recipe_file, out=out, workers=workers, scheduler=scheduler, network=network,
-                              train=train, fresh=fresh, progress=progress)
+                              train=train, fresh=fresh, progress=progress, exact=exact, agreement=agreement)
     finally:
         progress.stop()
-    console.print(f"{m['network']['name']}/{m['split']}: {m['samples']} samples reproduce the recipe, "
-                  f"identity_hash {m['identity_hash']} (split_hash {m['split_hash']})")
+    console.print(f"{m['network']['name']}/{m['split']}: {agreement.describe()}; identity_hash "
+                  f"{m['identity_hash']} (split_hash {m['split_hash']})")
 
 
 @splits.command(short_help="Recompute every hash of frozen splits.")
 @click.argument("paths", nargs=-1, type=click.Path())
 @click.option("--recipe", "recipe_file", default=None,
               help="Also check the split (one PATH) against this recipe (a file or NETWORK/SPLIT), sample by sample.")
-def verify(paths, recipe_file) -> None:
+@click.option("--exact", is_flag=True,
+              help="With --recipe: every sample bit for bit (without it, differences within the solver's "
+                   "tolerance, as on another CPU model, pass).")
+def verify(paths, recipe_file, exact) -> None:
     """Recompute every hash of the splits at PATHS (default: every frozen split); exit 3 on a difference."""
-    from ..splits import check_split_against_recipe, list_splits, resolve_split, splits_root, verify_split
+    from ..splits import Agreement, check_split_against_recipe, list_splits, resolve_split, splits_root, verify_split
     folders = [resolve_split(p) for p in paths] if paths else list_splits()
     if not folders:
         raise InputError("no frozen splits found", where=str(splits_root()))
@@ -141,8 +160,10 @@ def verify(paths, recipe_file) -> None:
         extra = "" if r.references_present else " (references withheld; manifest commits to their hash)"
         console.print(f"ok  {r.network}/{r.split}  {r.samples} samples  {r.split_hash[:16]}  {folder}{extra}")
     if recipe_file is not None:
-        ident = check_split_against_recipe(recipe_file, folders[0])
-        console.print(f"ok  matches the recipe {shown(recipe_file, 200)}: every sample, identity_hash {ident[:16]}")
+        agreement = Agreement()
+        ident = check_split_against_recipe(recipe_file, folders[0], exact=exact, agreement=agreement)
+        what = "every sample" if agreement.identical else agreement.describe().replace(" reproduce the recipe", "")
+        console.print(f"ok  matches the recipe {shown(recipe_file, 200)}: {what}, identity_hash {ident[:16]}")
 
 
 def _fmt(x: float, pct: bool = False) -> str:

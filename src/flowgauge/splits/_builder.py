@@ -205,7 +205,7 @@ def build_split(network: str | Path | Network, split: str, *, samples: int, seed
                 workers: int = 1, scheduler: str | None = None, chunk: int = DEFAULT_CHUNK,
                 notes: str = "", progress: Callable[[BuildProgress], None] | None = None,
                 max_attempts: int = MAX_ATTEMPTS, train=None, fresh: bool = False,
-                expect=None) -> dict[str, Any]:
+                expect=None, pilot: dict | None = None) -> dict[str, Any]:
     """Build one split into the folder ``out`` and return its manifest.
 
     Finished chunks are kept in a hidden sibling folder of ``out``; a rerun with the same
@@ -221,6 +221,9 @@ def build_split(network: str | Path | Network, split: str, *, samples: int, seed
     ``check_chunk(start, stop, inputs_table, references_table)`` on every chunk, resumed or
     new, before it is kept; ``check_manifest(manifest, folder)`` before the split is put in
     place. Each raises :class:`IntegrityError` on a difference.
+
+    ``pilot``: the spanning design's fitted pilot as a recipe keeps it, used instead of solving
+    one (:meth:`~flowgauge.splits._spanning.Spanning.pilot_record`).
     """
     if split not in SPLIT_NAMES:
         raise InputError(f"expected one of {', '.join(SPLIT_NAMES)}, got {split!r}", where="split")
@@ -240,7 +243,8 @@ def build_split(network: str | Path | Network, split: str, *, samples: int, seed
         # kept beside the chunks, so that a resumed build does not solve it again
         part.mkdir(parents=True, exist_ok=True)
         design = design_for(split, net, train, run=lambda fn, tasks: run_tasks(fn, tasks, workers=workers,
-                                                                                scheduler=scheduler), store=part)
+                                                                                scheduler=scheduler), store=part,
+                            pilot=pilot)
         job = Job(net=net, net_hash=network_hash(net), design=design, seed=seed,
                   acceptance=tuple(sorted(ACCEPTANCE.items())), max_attempts=max_attempts,
                   stream=draw_stream(split, design.name))

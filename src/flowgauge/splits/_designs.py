@@ -260,18 +260,21 @@ SPLIT_DESIGN = {"train": "spanning", "test-id": "spanning", "test-ood": "outside
                 "train-n1": "single-outage"}
 
 
-def design_for(split: str, net: Network | None = None, train=None, run=None, store=None):
+def design_for(split: str, net: Network | None = None, train=None, run=None, store=None, pilot=None):
     """The design of ``split``; with ``net``, fitted to that network (level ranges placed, the
     spanning design's pilot solved). ``train``: the training split (a loaded Split), which the
     out-of-distribution design needs for its unseen-regime draws. ``run`` and ``store``: where
     the spanning design's pilot draws run and where the fitted pilot is kept
-    (:meth:`._spanning.Spanning.fitted`); the other designs solve nothing when fitted."""
+    (:meth:`._spanning.Spanning.fitted`); the other designs solve nothing when fitted.
+    ``pilot``: the spanning design's fitted pilot as a recipe keeps it
+    (:meth:`._spanning.Spanning.pilot_record`): used instead of solving one."""
     if split not in SPLIT_DESIGN:
         raise InputError(f"expected one of {', '.join(SPLIT_DESIGN)}, got {split!r}", where="split")
     design = DESIGNS[SPLIT_DESIGN[split]]()
     if net is None:
         return design
-    design = design.fitted(net, run=run, store=store) if getattr(design, "solves_pilot", False) else design.fitted(net)
+    design = design.fitted(net, run=run, store=store, pilot=pilot) if getattr(design, "solves_pilot", False) \
+        else design.fitted(net)
     if hasattr(design, "with_train") and train is not None and train.references is not None:
         design = design.with_train(train.references.signature, train.split_hash)
     return design

@@ -146,10 +146,10 @@ class SingleOutage:
     candidates: dict = field(default_factory=dict)  # per table: outages listed before the checks
     list_info: dict = field(default_factory=dict)
 
-    def fitted(self, net: Network, solver=None, run=None, store=None) -> "SingleOutage":
+    def fitted(self, net: Network, solver=None, run=None, store=None, pilot: dict | None = None) -> "SingleOutage":
         if self.branches is not None:
             return self
-        loadings = self.loadings.fitted(net, solver, run, store)
+        loadings = self.loadings.fitted(net, solver, run, store, pilot)
         path = contingency_path(net.name)
         if path.is_file():
             cl = load_contingencies(path, net)

@@ -192,9 +192,11 @@ class Spanning:
         return self._along(net, w, pf, frac, solver, "spanning"), (w, pf, frac)
 
     # -- the pilot and the steered draw ---------------------------------------------------
-    def fitted(self, net: Network, solver=None, run=None, store: Path | None = None) -> "Spanning":
+    def fitted(self, net: Network, solver=None, run=None, store: Path | None = None,
+               pilot: dict | None = None) -> "Spanning":
         """The design placed on ``net``: the lower end of ``fraction`` fitted
-        (:meth:`lightest_share`) and the pilot solved (:meth:`_pilot`).
+        (:meth:`lightest_share`) and the pilot solved (:meth:`_pilot`); or, with ``pilot`` (a
+        :meth:`pilot_record`, as a recipe keeps it), placed as that record says, nothing solved.
 
         ``run(fn, tasks)``: where the pilot's draws run (the build's executor: local worker
         processes or a Dask cluster, yielding ``(task, result)`` in any order); None: here, one
@@ -204,6 +206,8 @@ class Spanning:
         changes the result: every pilot draw depends only on its slot."""
         if self.pilot is not None:
             return self
+        if pilot is not None:
+            return self.with_pilot_record(net, pilot)
         if net.n_bus > LARGE_NETWORK_BUSES and self.pilot_draws > LARGE_PILOT_DRAWS:
             return replace(self, pilot_draws=LARGE_PILOT_DRAWS).fitted(net, solver, run, store)
         from ._manifest import network_hash
@@ -224,6 +228,36 @@ class Spanning:
             _write_fitted(path, key_text, *_PILOTS[key])
         fraction, pilot = _PILOTS[key]
         return replace(self, fraction=fraction, pilot=pilot)
+
+    def pilot_record(self, net: Network) -> dict[str, Any]:
+        """The fitted design's outcome of solving, as a recipe keeps it: the fitted ``fraction``,
+        the number of pilot draws, and per kept pilot draw its slot and regime. Everything else
+        in the pilot follows from the slot's random draws (:meth:`with_pilot_record`)."""
+        p = self.pilot
+        slots: list[int] = []
+        for slot in range(self.pilot_draws):
+            if len(slots) == len(p["regime"]):
+                break
+            w, _ = self._direction(net, sample_rng(self.pilot_seed, slot, 0))
+            if np.array_equal(w, p["weights"][len(slots)]):  # kept draws are in slot order
+                slots.append(slot)
+        if len(slots) != len(p["regime"]):
+            raise RuntimeError("the pilot's draws do not follow from its slots")  # a bug, not a user error
+        return {"fraction": [float(x) for x in self.fraction], "draws": int(self.pilot_draws), "slots": slots,
+                "regimes": [str(r) for r in p["regime"].tolist()]}
+
+    def with_pilot_record(self, net: Network, record: dict[str, Any]) -> "Spanning":
+        """The design fitted as ``record`` (:meth:`pilot_record`) says: each kept pilot draw's
+        directions and fraction drawn again from its slot, its regime taken from the record."""
+        this = replace(self, fraction=(float(record["fraction"][0]), float(record["fraction"][1])),
+                       pilot_draws=int(record["draws"]))
+        rows = []
+        for slot, regime in zip(record["slots"], record["regimes"]):
+            rng = sample_rng(this.pilot_seed, int(slot), 0)
+            w, pf = this._direction(net, rng)  # as plain() draws them
+            rows.append((w, pf, float(rng.uniform(*this.fraction)), str(regime)))
+        ws, pfs, fracs, regimes = (list(col) for col in zip(*rows))
+        return replace(this, pilot=_pilot_arrays(np.array(ws), np.array(pfs), np.array(fracs), np.array(regimes)))
 
     def lightest_share(self, net: Network, tools) -> float:
         """The first of :data:`LIGHT_SHARES` (at least the nominal lower end of ``fraction``)
@@ -331,8 +365,9 @@ class Outside:
     train_regimes: frozenset = frozenset()
     train_split_hash: str = ""
 
-    def fitted(self, net: Network, solver=None, run=None, store: Path | None = None) -> "Outside":
-        return replace(self, spanning=self.spanning.fitted(net, solver, run, store))
+    def fitted(self, net: Network, solver=None, run=None, store: Path | None = None,
+               pilot: dict | None = None) -> "Outside":
+        return replace(self, spanning=self.spanning.fitted(net, solver, run, store, pilot))
 
     def with_train(self, regimes, split_hash: str) -> "Outside":
         return replace(self, train_regimes=frozenset(str(r) for r in regimes), train_split_hash=split_hash)

@@ -4,7 +4,6 @@ the file and what differs."""
 
 from __future__ import annotations
 
-import json
 from dataclasses import dataclass
 from pathlib import Path
 
