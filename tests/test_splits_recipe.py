@@ -109,7 +109,7 @@ def test_a_differing_sample_stops_the_rebuild_naming_it(train, tmp_path, capsys,
     chunks = sorted(p.name for p in (partial_dir(dest) / "chunks").glob("*.npz"))
     assert chunks == [f"samples-{s:07d}-{s + 3:07d}.npz" for s in range(0, 3 * (sample // 3), 3)]
     progress = []
-    build_from_recipe(recipe, out=dest, progress=progress.append)
+    build_from_recipe(recipe, out=dest, progress=progress.append, exact=True)
     assert progress[0].resumed == 3 * (sample // 3)
 
 
@@ -141,9 +141,10 @@ def test_a_digest_that_differs_within_tolerance_passes_and_is_counted(train, tmp
 
 
 @pytest.mark.parametrize("key,column,sample,change,message", [
-    # 1e-4 of the row's size and more: beyond the tolerance (1e-5)
-    ("references", "vm_pu", 5, lambda v: v + 1e-4 * 14 * 1.05, "beyond tolerance: column vm_pu"),
-    ("inputs", "pd_mw", 7, lambda v: v * (1 + 1e-2), "beyond tolerance: column pd_mw"),
+    # 1e-3 of the row's size: beyond the tolerance of the optimal point (1e-4)
+    ("references", "vm_pu", 5, lambda v: v + 1e-3 * 14 * 1.05, "beyond tolerance: column vm_pu"),
+    # another draw's loads: the message says that a draw's acceptance tipped
+    ("inputs", "pd_mw", 7, lambda v: v + 100.0, "beyond tolerance: column pd_mw"),
 ])
 def test_a_sketch_beyond_tolerance_stops_the_rebuild_naming_sample_and_column(train, tmp_path, capsys, key, column,
                                                                             sample, change, message):
@@ -156,6 +157,7 @@ def test_a_sketch_beyond_tolerance_stops_the_rebuild_naming_sample_and_column(tr
     err = " ".join(capsys.readouterr().err.split())
     assert err.startswith(f"Error: sample {sample} ({key}.parquet): the rebuilt {key} of sample {sample} differ "
                           f"from the recipe's {message}"), err
+    assert ("another draw was kept for this sample" in err) == (key == "inputs"), err
     assert not dest.exists()
 
 
@@ -313,7 +315,8 @@ def test_committed_recipes_match_the_frozen_splits(network):
         doc = read_recipe(folder / f"{name}.json")
         assert ident == doc["expected"]["identity_hash"] and agreement.identical
         # sketches, for a rebuild on another CPU: its projections are the split's own
-        assert doc["expected"]["sample_sketches"]["relative_tolerance"] == 1e-5
+        tol = doc["expected"]["sample_sketches"]["relative_tolerance"]
+        assert tol["objective_per_h"] == 1e-6 and tol["pd_mw"] == 1e-5 and tol["vm_pu"] == 1e-4, name
         # a kept pilot is the one the split was built with (its hash was checked where it was
         # added: the directions drawn from its slots depend on numpy's vector code): its
         # counts are the design's
@@ -523,3 +526,71 @@ def test_a_pilot_that_does_not_reproduce_is_left_out_or_refused(train, tmp_path,
     assert "without its pilot" in " ".join(capsys.readouterr().out.split())
     assert main(["splits", "recipe", str(other), "--out", str(tmp_path / "r2.json"), "--pilot"]) == 2
     assert not (tmp_path / "r2.json").exists()
+
+
+# -- each sample's draw, kept in the recipe -----------------------------------------------------
+
+@pytest.fixture(scope="module")
+def ood(train, root):
+    """A small test-ood split beside the fixture's training split (its samples take draws
+    1, 2, ... where earlier draws are rejected), with the draws the build reports."""
+    out, m, recipe = train
+    test_out = out.parent / "test-ood"
+    attempts = []
+    tm = build_split("ieee14", "test-ood", samples=6, seed=SEED, out=test_out, chunk=3, attempts_out=attempts)
+    return test_out, tm, attempts
+
+
+def test_the_recipe_records_each_samples_draw(ood):
+    test_out, tm, attempts = ood
+    assert len(attempts) == 6 and sum(attempts) == sum(tm["rejected"].values()) > 0  # some draws rejected
+    # found again by drawing without solving: the draws the build reported
+    r = recipe_from_split(test_out)
+    assert r["expected"]["sample_attempts"] == attempts
+    assert recipe_from_split(test_out, attempts=False)["expected"].get("sample_attempts") is None
+
+
+def test_a_rebuild_takes_each_recorded_draw_alone(ood, tmp_path, monkeypatch):
+    from flowgauge.splits import _worker
+    test_out, tm, attempts = ood
+    r = recipe_from_split(test_out)
+    drawn = []
+    real = _worker._draw
+    monkeypatch.setattr(_worker, "_draw", lambda job, tools, slot, attempt: (drawn.append((slot, attempt)),
+                                                                           real(job, tools, slot, attempt))[1])
+    agreement = Agreement()
+    m = build_from_recipe(r, out=tmp_path / "a" / "ieee14" / "test-ood", train=test_out.parent / "train",
+                          agreement=agreement)
+    assert m["identity_hash"] == tm["identity_hash"] and m["rejected"] == tm["rejected"]
+    assert sorted(drawn) == list(enumerate(attempts))  # no rejected draw drawn or solved again
+    assert agreement.recorded_draws and "its rejected draws not solved again" in agreement.describe()
+    # --exact draws in turn and solves every rejected draw again
+    drawn.clear()
+    m = build_from_recipe(r, out=tmp_path / "b" / "ieee14" / "test-ood", train=test_out.parent / "train", exact=True)
+    assert m["identity_hash"] == tm["identity_hash"] and len(drawn) == tm["draws"]
+    # a sample marked -1 (its draw not known) draws in turn
+    r["expected"]["sample_attempts"][0] = -1
+    drawn.clear()
+    m = build_from_recipe(r, out=tmp_path / "c" / "ieee14" / "test-ood", train=test_out.parent / "train")
+    assert m["identity_hash"] == tm["identity_hash"] and sorted(drawn)[:attempts[0] + 1] == \
+        [(0, a) for a in range(attempts[0] + 1)]
+
+
+def test_a_recorded_draw_rejected_here_stops_the_rebuild_naming_the_sample(ood, tmp_path, capsys):
+    """As when a draw the recipe keeps has no converged optimal power flow on this machine
+    (here: the recipe names, for a sample, a draw the build rejected)."""
+    test_out, tm, attempts = ood
+    sample = next(i for i, a in enumerate(attempts) if a > 0)
+    r = recipe_from_split(test_out)
+    r["expected"]["sample_attempts"][sample] = attempts[sample] - 1
+    path = tmp_path / "r.json"
+    path.write_text(json.dumps(r))
+    assert main(["splits", "rebuild", str(path), "--out", str(tmp_path / "ieee14" / "test-ood"), "--quiet",
+                 "--train", str(test_out.parent / "train")]) == 3
+    err = " ".join(capsys.readouterr().err.split())
+    assert err.startswith(f"Error: sample {sample}: the draw the recipe keeps for this sample (attempt "
+                          f"{attempts[sample] - 1}) is rejected on this machine ("), err
+    bad = dict(r, expected=dict(r["expected"], sample_attempts=[0] * 5))
+    path.write_text(json.dumps(bad))
+    assert main(["splits", "rebuild", str(path), "--out", str(tmp_path / "x"), "--quiet"]) == 2
+    assert f"{path}: /expected/sample_attempts: expected 6 draw numbers" in capsys.readouterr().err

@@ -56,8 +56,10 @@ LARGE_COUNTS = {
     # minutes with 2 workers (outside draws are rejected even more often; docs/splits.md);
     # test-edge is cheap here (150 in 1,349 s)
     # test-year added on 2026-12-02 once samples could carry switched capacitor banks (built
-    # without the train split, whose recipe does not rebuild on an AVX-512 machine)
-    "activsg2000": {"train": 40, "test-id": 60, "test-edge": 150, "test-year": 200},
+    # without the train split). train, test-id and test-edge refrozen on 2026-12-03 with a new
+    # test-ood on an AVX-512 machine: the train recipe, written on an AVX2 machine, stops there
+    # at its pilot (docs/splits.md, "How far it reproduces"), and test-ood needs train on disk
+    "activsg2000": {"train": 40, "test-id": 60, "test-edge": 150, "test-ood": 60, "test-year": 200},
     # no test-ood: it needs the train split on disk, and the train recipe, rebuilt on 2026-12-02
     # to build one, differed at sample 0's references on that machine (docs/splits.md)
     "pegase2869": {"train": 40, "test-id": 60, "test-edge": 40},
@@ -149,15 +151,19 @@ def main(argv: list[str] | None = None) -> int:
             if n < n_plan:
                 notes = (f"frozen with {n} samples instead of the planned {n_plan}: {args.reason}").strip()
             t0 = time.perf_counter()
+            attempts: list[int] = []  # each sample's draw, for the recipe
             m = build_split(network, split, samples=n, seed=SEEDS[split], out=out, workers=args.workers,
                             chunk=args.chunk, notes=notes, max_attempts=MAX_ATTEMPTS.get(split, 25),
+                            attempts_out=attempts,
                             progress=lambda p, s=split: print(f"{network}/{s}: {p.solved}/{p.total} solved, "
                                                               f"{p.rejected} rejected", flush=True))
             dt = time.perf_counter() - t0
             rej = sum(m["rejected"].values())
             print(f"{network}/{split}: done, {n} samples, {rej} rejected, {dt:.0f} s, {m['split_hash']}", flush=True)
             recipe = recipes_root() / network / f"{split}.json"
-            write_recipe(recipe_from_split(out), recipe)
+            # the pilot this process fitted is kept in the recipe, and the draws the build reported
+            # (none for chunks resumed from an earlier version: then found by drawing again)
+            write_recipe(recipe_from_split(out, attempts=attempts or None, workers=args.workers), recipe)
             if args.commit:
                 what = "Frozen split" if committed_data(network, split) else "Recipe of the split"
                 commit(out, f"{what} {network}/{split}: {n} samples, {rej} rejected draws (seed {SEEDS[split]})",

@@ -51,10 +51,13 @@ def _chunk_ranges(samples: int, chunk: int) -> list[tuple[int, int]]:
 
 
 def _fingerprint(job: Job, settings: dict, chunk: int) -> dict[str, Any]:
-    return {"network_hash": job.net_hash, "design": job.design.name, "stream": list(job.stream),
-            "parameters": job.design.parameters(job.net), "seed": job.seed, "solver": settings,
-            "acceptance": dict(job.acceptance), "max_attempts": job.max_attempts, "chunk": chunk,
-            "flowgauge_version": __version__}
+    out = {"network_hash": job.net_hash, "design": job.design.name, "stream": list(job.stream),
+           "parameters": job.design.parameters(job.net), "seed": job.seed, "solver": settings,
+           "acceptance": dict(job.acceptance), "max_attempts": job.max_attempts, "chunk": chunk,
+           "flowgauge_version": __version__}
+    if job.attempts is not None:  # chunks that took recorded draws hold no rejections
+        out["draws_from_recipe"] = hash_arrays({"attempt": np.asarray(job.attempts, np.int64)})
+    return out
 
 
 def _differing_setting(have: Any, want: dict) -> str:
@@ -111,7 +114,7 @@ def _assemble(chunks: list[dict]) -> tuple[dict[str, np.ndarray], Counter]:
     rejected: Counter = Counter()
     for c in chunks:
         rejected.update(json.loads(str(c["rejected"])))
-    keys = [k for k in chunks[0] if k != "rejected"]
+    keys = [k for k in chunks[0] if k != "rejected" and all(k in c for c in chunks)]
     return {k: np.concatenate([c[k] for c in chunks]) for k in keys}, rejected
 
 
@@ -153,7 +156,8 @@ def train_identity(train) -> str:
 
 
 def _finish(out: Path, part: Path, net: Network, job: Job, split: str, samples: int,
-            data: dict, rejected: Counter, settings: dict, notes: str, train=None, expect=None) -> dict[str, Any]:
+            data: dict, rejected: Counter, settings: dict, notes: str, train=None, expect=None,
+            attempts_out: list | None = None) -> dict[str, Any]:
     stage = part / "final"
     if stage.exists():
         shutil.rmtree(stage)
@@ -198,6 +202,8 @@ def _finish(out: Path, part: Path, net: Network, job: Job, split: str, samples: 
     out.parent.mkdir(parents=True, exist_ok=True)
     os.replace(stage, out)
     shutil.rmtree(part)
+    if attempts_out is not None and "attempt" in data:
+        attempts_out[:] = [int(a) for a in data["attempt"]]
     return written
 
 
@@ -205,7 +211,8 @@ def build_split(network: str | Path | Network, split: str, *, samples: int, seed
                 workers: int = 1, scheduler: str | None = None, chunk: int = DEFAULT_CHUNK,
                 notes: str = "", progress: Callable[[BuildProgress], None] | None = None,
                 max_attempts: int = MAX_ATTEMPTS, train=None, fresh: bool = False,
-                expect=None, pilot: dict | None = None) -> dict[str, Any]:
+                expect=None, pilot: dict | None = None, replay: dict | None = None,
+                attempts_out: list | None = None) -> dict[str, Any]:
     """Build one split into the folder ``out`` and return its manifest.
 
     Finished chunks are kept in a hidden sibling folder of ``out``; a rerun with the same
@@ -224,6 +231,12 @@ def build_split(network: str | Path | Network, split: str, *, samples: int, seed
 
     ``pilot``: the spanning design's fitted pilot as a recipe keeps it, used instead of solving
     one (:meth:`~flowgauge.splits._spanning.Spanning.pilot_record`).
+
+    ``replay``: a recipe's record of the draws: ``attempts`` (per sample, the draw it was built
+    from), ``rejected`` and ``draws``. Each sample then takes its recorded draw alone (a draw
+    rejected here is an :class:`IntegrityError` naming the sample) and the manifest records
+    the recipe's rejections, which are not solved again. ``attempts_out``: a list filled with
+    each sample's draw once the split is in place.
     """
     if split not in SPLIT_NAMES:
         raise InputError(f"expected one of {', '.join(SPLIT_NAMES)}, got {split!r}", where="split")
@@ -247,7 +260,8 @@ def build_split(network: str | Path | Network, split: str, *, samples: int, seed
                             pilot=pilot)
         job = Job(net=net, net_hash=network_hash(net), design=design, seed=seed,
                   acceptance=tuple(sorted(ACCEPTANCE.items())), max_attempts=max_attempts,
-                  stream=draw_stream(split, design.name))
+                  stream=draw_stream(split, design.name),
+                  attempts=None if replay is None else tuple(int(a) for a in replay["attempts"]))
         settings = solver_settings()
         if expect is not None:
             expect.check_plan(_plan(net, job, split, samples, settings, train))
@@ -295,7 +309,10 @@ def build_split(network: str | Path | Network, split: str, *, samples: int, seed
             shutil.rmtree(part, ignore_errors=True)
         raise
     data, rejected = _assemble([done[r] for r in ranges])
-    return _finish(out, part, net, job, split, samples, data, rejected, settings, notes, train, expect)
+    if replay is not None:  # the recorded draws were taken alone: the rejections are the recipe's
+        rejected = Counter(replay["rejected"])
+    return _finish(out, part, net, job, split, samples, data, rejected, settings, notes, train, expect,
+                   attempts_out)
 
 
 def _plan(net: Network, job: Job, split: str, samples: int, settings: dict, train) -> dict[str, Any]:

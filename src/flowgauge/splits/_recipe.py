@@ -40,7 +40,7 @@ from ._store import MANIFEST_FILE, read_table, table_columns
 __all__ = ["RECIPE_FORMAT", "RECIPE_VERSION", "RECIPE_SCHEMA_PATH", "Expectation", "recipe_from_split",
            "write_recipe", "read_recipe", "build_from_recipe", "check_split_against_recipe",
            "recipes_root", "resolve_recipe", "sample_digests", "sample_sketches", "Agreement",
-           "RECIPE_MAX_ATTEMPTS", "SKETCH_TOLERANCE"]
+           "RECIPE_MAX_ATTEMPTS", "SKETCH_TOLERANCE", "SKETCH_TOLERANCES"]
 
 RECIPE_FORMAT = "flowgauge-split-recipe"
 RECIPE_VERSION = 1
@@ -53,13 +53,15 @@ PER_LINE = 64  # sample digests per string in the file (lines of 1,024 character
 RECIPE_MAX_ATTEMPTS = 100
 MAX_RECIPE_BYTES = 200 * 10**6
 # Sketches: per sample and floating-point column, its row's projections on fixed random sign
-# vectors. Another CPU changes a few stored values by a unit in their 10th digit (1e-11 to 1e-9
-# of the row's size, the sum of its absolute values), and in some samples takes the solver to
-# another point within its tolerances of 1e-6 p.u. (measured up to 1.1e-6 of a row's size, on
-# reactive outputs; docs/splits.md, "How far it reproduces"). The tolerance is ten times that:
-# 1e-5 of the row's size. Another optimum or another draw moves a row by more.
+# vectors, compared as a share of the row's size (the sum of its absolute values). Another CPU
+# changes a few stored values by a unit in their 10th digit (1e-11 to 1e-9 of a row), and in
+# some samples takes the solver to another point within its tolerances (docs/splits.md, "How
+# far it reproduces"; measured: objective 1.2e-7, reactive outputs up to 2.4e-5, where
+# reactive dispatch is not unique at the optimum). So the optimal cost, which is unique, and
+# the loads, which a draw fixes, are held close; the optimal point is held to 1e-4 of its size.
 SKETCH_PROJECTIONS = 2
-SKETCH_TOLERANCE = 1e-5
+SKETCH_TOLERANCES = {"objective_per_h": 1e-6, "pd_mw": 1e-5, "qd_mvar": 1e-5, "margin": 1e-5}
+SKETCH_TOLERANCE = 1e-4  # every other floating-point column (voltages, angles, outputs)
 # Solver diagnostics that another CPU may change without changing the solution: left out of
 # the discrete digest (the exact digests still cover them).
 NOISE_SENSITIVE = ("iterations",)
@@ -184,8 +186,41 @@ def _fitted_pilot(net, pilot_hash: str, workers: int) -> dict[str, Any] | None:
     return design.pilot_record(net)
 
 
+def _found_attempts(folder: Path, m: dict[str, Any], pilot: dict[str, Any] | None, max_attempts: int,
+                    train, workers: int) -> list[int] | None:
+    """Each sample's draw (attempt) in the split at ``folder``, found by drawing again without
+    solving (:func:`._worker.match_chunk`); -1 for a sample whose draw is not among the first
+    ``max_attempts`` here (its draw tips on this machine's arithmetic, or the design drawn here
+    is not the one it was built with); None if no sample's is found."""
+    from ._designs import design_for, draw_stream
+    from ._executors import run_tasks
+    from ._load import load_split, split_network
+    from ._worker import ACCEPTANCE, Job, match_chunk
+    sp = load_split(folder, references=False)
+    net = split_network(m, folder)
+    t = None
+    if m["split"].startswith("test-"):
+        t_folder = Path(train) if train is not None else folder.parent / "train"
+        t = load_split(t_folder) if (t_folder / MANIFEST_FILE).exists() else None
+    design = design_for(m["split"], net, t, run=lambda fn, tasks: run_tasks(fn, tasks, workers=workers),
+                        pilot=pilot)
+    job = Job(net=net, net_hash=network_hash(net), design=design, seed=m["seed"],
+              acceptance=tuple(sorted(ACCEPTANCE.items())), max_attempts=max_attempts,
+              stream=draw_stream(m["split"], design.name))
+    states = {name: getattr(sp, name) for name in ("branch_in_service", "gen_in_service", "shunt_in_service")
+              if getattr(sp, name) is not None}
+    n, step = sp.n_samples, DEFAULT_CHUNK
+    tasks = [(job, a, min(a + step, n), sp.pd_mw[a:a + step], sp.qd_mvar[a:a + step],
+              {k: v[a:a + step] for k, v in states.items()}) for a in range(0, n, step)]
+    found = np.full(n, -1, np.int64)
+    for task, result in run_tasks(match_chunk, tasks, workers=workers):
+        found[task[1]:task[2]] = result
+    return None if (found < 0).all() else [int(a) for a in found]
+
+
 def recipe_from_split(folder: str | Path, *, chunk: int = DEFAULT_CHUNK, max_attempts: int = RECIPE_MAX_ATTEMPTS,
-                      train: str | Path | None = None, pilot: bool | None = None, workers: int = 1) -> dict[str, Any]:
+                      train: str | Path | None = None, pilot: bool | None = None, workers: int = 1,
+                      attempts: list[int] | None | bool = None) -> dict[str, Any]:
     """The recipe of the split in ``folder`` (verified first; its references must be present).
 
     ``train``: the training split a test split was built beside (default: the sibling folder
@@ -197,6 +232,11 @@ def recipe_from_split(folder: str | Path, *, chunk: int = DEFAULT_CHUNK, max_att
     The pilot is solved here (``workers`` processes; a pilot this process already solved is
     reused) and kept if its hash is the split's. None: keep it if so, else leave it out; True:
     :class:`InputError` if it differs; False: leave it out.
+
+    ``attempts``: each sample's draw, kept in the recipe (``expected/sample_attempts``) so that
+    a rebuild takes it alone: a list (as the build reported it, ``build_split(attempts_out=)``),
+    None to find them by drawing again without solving (left out if a sample's draw is not
+    found, as when the pilot could not be kept), or False to leave them out.
     """
     from ._load import load_split, resolve_split
     from ._verify import verify_split
@@ -243,7 +283,10 @@ def recipe_from_split(folder: str | Path, *, chunk: int = DEFAULT_CHUNK, max_att
                      "reference_columns": view["files"]["references"]["columns"],
                      "rejected": m["rejected"], "draws": m["draws"],
                      "sample_digests": {"digest_hex": DIGEST_HEX, "per_line": PER_LINE, **digests},
-                     "sample_sketches": {"projections": SKETCH_PROJECTIONS, "relative_tolerance": SKETCH_TOLERANCE,
+                     "sample_sketches": {"projections": SKETCH_PROJECTIONS,
+                                         "relative_tolerance": {name: SKETCH_TOLERANCES.get(name, SKETCH_TOLERANCE)
+                                                                for key in ("inputs", "references")
+                                                                for name in sketches[key]["columns"]},
                                          "digest_hex": DIGEST_HEX, "per_line": PER_LINE, **sketches}},
         "built_with": {"flowgauge_version": m["flowgauge_version"], "split_hash": m["split_hash"]},
     }
@@ -259,6 +302,13 @@ def recipe_from_split(folder: str | Path, *, chunk: int = DEFAULT_CHUNK, max_att
             raise InputError(f"the spanning pilot solved here differs from the one the split was built with "
                              f"(pilot_hash {pilot_hash[:16]}...): write the recipe where the split was built, or "
                              f"without its pilot", where=str(folder / MANIFEST_FILE))
+    if attempts is None and (pilot_hash is None or "pilot" in recipe):
+        attempts = _found_attempts(folder, m, recipe.get("pilot"), max_attempts, train, workers)
+    if attempts:
+        if len(attempts) != m["samples"] or min(attempts) < -1 or max(attempts) >= max_attempts:
+            raise InputError(f"expected {m['samples']} draw numbers from 0 to {max_attempts - 1} (-1: not known)",
+                             where="attempts")
+        recipe["expected"]["sample_attempts"] = [int(a) for a in attempts]
     return json.loads(canonical_json(recipe))
 
 
@@ -301,6 +351,13 @@ def _check_recipe(doc: Any, source: str) -> dict[str, Any]:
         if count != doc["samples"]:
             raise InputError(f"holds digests of {count} samples, the recipe has {doc['samples']}",
                              where=f"{source}: /expected/sample_digests/{key}")
+    attempts = doc["expected"].get("sample_attempts")
+    if attempts is not None and (len(attempts) != doc["samples"] or max(attempts, default=0) >= doc["build"]["max_attempts"]
+                                 or min(attempts, default=0) < -1):
+        raise InputError(f"expected {doc['samples']} draw numbers from -1 (not known) to below build/max_attempts "
+                         f"({doc['build']['max_attempts']}), got {len(attempts)} from {min(attempts, default=0)} "
+                         f"to {max(attempts, default=0)}",
+                         where=f"{source}: /expected/sample_attempts")
     pilot = doc.get("pilot")
     if pilot is not None:
         slots, draws = pilot["slots"], pilot["draws"]
@@ -317,6 +374,9 @@ def _check_recipe(doc: Any, source: str) -> dict[str, Any]:
             raise InputError(f"expected {doc['samples']} digests of {sk['digest_hex']} hex digits, got "
                              f"{count} digits", where=f"{pointer}/discrete")
         for name, lines in sk[key]["columns"].items():
+            if name not in sk["relative_tolerance"]:
+                raise InputError(f"no tolerance for column {clip_text(name, 60)!r}",
+                                 where=f"{source}: /expected/sample_sketches/relative_tolerance")
             got = len(_unpack_floats(lines, sk["projections"], f"{pointer}/columns/{name}"))
             if got != doc["samples"]:
                 raise InputError(f"holds projections of {got} samples, the recipe has {doc['samples']}",
@@ -376,6 +436,7 @@ class Agreement:
     within: set = field(default_factory=set)
     largest: float = 0.0
     train: bool = False
+    recorded_draws: bool = False
 
     @property
     def identical(self) -> bool:
@@ -389,6 +450,8 @@ class Agreement:
                     f"{len(self.within)} to within tolerance (largest difference {self.largest:.1e} of a row's size)")
         if self.train:
             text += "; built beside a training split that reproduces its recipe to within tolerance"
+        if self.recorded_draws:
+            text += "; each from the draw the recipe records (its rejected draws not solved again)"
         if not self.identical:
             text += " (another CPU model; docs/splits.md, \"How far it reproduces\")"
         return text
@@ -497,11 +560,17 @@ class Expectation:
                                  f"are missing)", where=where)
         for name in sorted(proj):
             diff = float(np.max(np.abs(proj[name][row] - sk["columns"][name][sample])))
-            allowed = self.sketch["tol"] * float(sizes[name][row]) + 1e-300
+            tol = self.sketch["tol"][name]
+            allowed = tol * float(sizes[name][row]) + 1e-300
             if not diff <= allowed:  # NaN fails too
+                share = diff / allowed * tol
+                hint = ""
+                if key == "inputs" and share > 1e-3:  # not a nearby point: another draw
+                    hint = ("; another draw was kept for this sample: a draw whose acceptance (a converged "
+                            "optimal power flow) tips on this machine's arithmetic")
                 raise IntegrityError(f"{lead} beyond tolerance: column {name} differs by {diff:.3g} in its "
-                                     f"projections, {diff / allowed * self.sketch['tol']:.1e} of the row's size "
-                                     f"(the tolerance is {self.sketch['tol']:.0e})", where=where)
+                                     f"projections, {share:.1e} of the row's size (the tolerance is "
+                                     f"{tol:.0e}){hint}", where=where)
             size = float(sizes[name][row])
             self.agreement.largest = max(self.agreement.largest, diff / size if size > 0 else 0.0)
         self.agreement.within.add(sample)
@@ -580,10 +649,15 @@ def build_from_recipe(recipe: str | Path | dict[str, Any], *, out: str | Path | 
     expect = Expectation(doc, source, exact=exact)
     if "train" in doc and not exact:
         expect.train_within = _train_within_tolerance(doc, source, train_split)
+    e = doc["expected"]
+    replay = None
+    if not exact and "sample_attempts" in e:  # each sample's recorded draw alone
+        replay = {"attempts": e["sample_attempts"], "rejected": e["rejected"], "draws": e["draws"]}
+        expect.agreement.recorded_draws = True
     manifest = build_split(net, doc["split"], samples=doc["samples"], seed=doc["seed"], out=out, workers=workers,
                            scheduler=scheduler, chunk=doc["build"]["chunk"], notes=doc["notes"], progress=progress,
                            max_attempts=doc["build"]["max_attempts"], train=train_split, fresh=fresh, expect=expect,
-                           pilot=doc.get("pilot"))
+                           pilot=doc.get("pilot"), replay=replay)
     if agreement is not None:
         agreement.__dict__.update(expect.agreement.__dict__)
     return manifest

@@ -1,7 +1,9 @@
 """The work of one chunk of samples, run in a worker process (local or Dask).
 
 Each sample slot tries draws (attempt 0, 1, ...) until one gives a loading whose AC-OPF
-reference is accepted; every rejected draw is counted by reason. A draw with a state (one
+reference is accepted; every rejected draw is counted by reason. A rebuild from a recipe that
+records each sample's accepted draw takes that draw alone (``Job.attempts``), and
+:func:`match_chunk` finds those draws for a built split without solving any AC-OPF. A draw with a state (one
 element out, the single-outage design) is solved on the network of that state
 (:func:`flowgauge.network.network_in_state`), one AC-OPF object per distinct state and process,
 and its binding limits are recorded without the labels of generators out
@@ -20,17 +22,20 @@ from typing import Any
 import numpy as np
 
 from .._io import atomic_write_bytes
-from ..errors import InputError
+from ..errors import InputError, IntegrityError
 from ..network import Network
 from ._designs import Loading, sample_rng
 from ._store import BINDING_SEP
 
-__all__ = ["Job", "ACCEPTANCE", "MAX_ATTEMPTS", "solver_settings", "make_tools", "solve_chunk",
-           "write_chunk", "read_chunk", "reject_reason"]
+__all__ = ["Job", "ACCEPTANCE", "MAX_ATTEMPTS", "solver_settings", "make_tools", "solve_chunk", "match_chunk",
+           "write_chunk", "read_chunk", "reject_reason", "MATCH_TOLERANCE"]
 
 # A reference is kept only if converged and every residual / violation is at most this.
 ACCEPTANCE = {"max_p_mismatch_mw": 1e-3, "max_q_mismatch_mvar": 1e-3, "max_limit_violation": 1e-3}
 MAX_ATTEMPTS = 25
+# A drawn loading is a built sample's draw when its loads are within this share of the
+# sample's (sum of absolute values; another CPU changes their last digits) and its states equal.
+MATCH_TOLERANCE = 1e-5
 
 
 @dataclass(frozen=True)
@@ -44,6 +49,7 @@ class Job:
     acceptance: tuple  # ((name, tolerance), ...)
     max_attempts: int = MAX_ATTEMPTS
     stream: tuple = ()  # the split's stream of draws (_designs.draw_stream)
+    attempts: tuple | None = None  # per sample slot, the draw to take (a recipe's; -1 or None: draw in turn)
 
 
 # AC-OPF objects of states kept per process (least recently used dropped): a state's object
@@ -126,16 +132,25 @@ def reject_reason(res, acceptance: tuple) -> str | None:
     return None
 
 
-def _solve_slot(job: Job, tools, slot: int, rejected: Counter) -> tuple[Loading, Any]:
-    for attempt in range(job.max_attempts):
-        rng = sample_rng(job.seed, slot, attempt, job.stream)
-        if getattr(job.design, "uses_attempt", False):  # designs whose redraws change with the attempt
-            loading = job.design.draw(job.net, rng, tools, slot=slot, attempt=attempt)
-        elif getattr(job.design, "uses_slot", False):  # designs that vary their kind by slot
-            loading = job.design.draw(job.net, rng, tools, slot=slot)
-        else:
-            loading = job.design.draw(job.net, rng, tools)
+def _draw(job: Job, tools, slot: int, attempt: int) -> Loading | str:
+    rng = sample_rng(job.seed, slot, attempt, job.stream)
+    if getattr(job.design, "uses_attempt", False):  # designs whose redraws change with the attempt
+        return job.design.draw(job.net, rng, tools, slot=slot, attempt=attempt)
+    if getattr(job.design, "uses_slot", False):  # designs that vary their kind by slot
+        return job.design.draw(job.net, rng, tools, slot=slot)
+    return job.design.draw(job.net, rng, tools)
+
+
+def _solve_slot(job: Job, tools, slot: int, rejected: Counter) -> tuple[Loading, Any, int]:
+    recorded = getattr(job, "attempts", None)
+    if recorded is not None and int(recorded[slot]) < 0:  # a draw the recipe could not name: in turn
+        recorded = None
+    tries = range(job.max_attempts) if recorded is None else (int(recorded[slot]),)
+    for attempt in tries:
+        loading = _draw(job, tools, slot, attempt)
         if isinstance(loading, str):
+            if recorded is not None:
+                raise _replay_error(slot, attempt, loading)
             rejected[f"{loading}"] += 1
             continue
         if loading.branch_in_service is not None or loading.shunt_in_service is not None:
@@ -151,15 +166,24 @@ def _solve_slot(job: Job, tools, slot: int, rejected: Counter) -> tuple[Loading,
         if reason is None and hasattr(job.design, "check"):
             reason = job.design.check(loading, res)
         if reason is None:
-            return loading, res
+            return loading, res, attempt
+        if recorded is not None:
+            raise _replay_error(slot, attempt, reason)
         rejected[f"{loading.kind}: {reason}" if loading.kind else reason] += 1
     counts = ", ".join(f"{k}: {v}" for k, v in sorted(rejected.items()))
     raise InputError(f"{job.max_attempts} draws in a row were rejected for design {job.design.name!r} on "
                      f"network {job.net.name!r} (rejected so far: {counts})", where=f"sample {slot}")
 
 
+def _replay_error(slot: int, attempt: int, reason: str) -> IntegrityError:
+    return IntegrityError(f"the draw the recipe keeps for this sample (attempt {attempt}) is rejected on this "
+                          f"machine ({reason}): its acceptance tips on this machine's arithmetic",
+                          where=f"sample {slot}")
+
+
 def solve_chunk(job: Job, start: int, stop: int) -> dict[str, np.ndarray]:
-    """Samples ``start`` .. ``stop - 1``: inputs, references and the rejected draws, as arrays."""
+    """Samples ``start`` .. ``stop - 1``: inputs, references, each sample's accepted draw
+    (``attempt``) and the rejected draws, as arrays."""
     tools = make_tools(job.net, job.net_hash)
     rejected: Counter = Counter()
     rows = [_solve_slot(job, tools, slot, rejected) for slot in range(start, stop)]
@@ -190,8 +214,47 @@ def solve_chunk(job: Job, start: int, stop: int) -> dict[str, np.ndarray]:
         "binding": np.array([BINDING_SEP.join(r.binding) for r in res], dtype=str),
         "signature": np.array([str(r.signature) for r in res], dtype=str),
         "rejected": np.array(json.dumps(dict(sorted(rejected.items())))),
+        "attempt": np.array([r[2] for r in rows], np.int64),
         **state,
     }
+
+
+def _flags(net: Network, loading: Loading) -> dict[str, np.ndarray]:
+    """A loading's per-sample state flags as the split stores them (None: the intact state)."""
+    from ..network import intact_state
+    br0, gen0 = intact_state(net)
+    return {"branch_in_service": br0 if loading.branch_in_service is None else np.asarray(loading.branch_in_service, bool),
+            "gen_in_service": gen0 if loading.gen_in_service is None else np.asarray(loading.gen_in_service, bool),
+            "shunt_in_service": np.ones(net.n_bus, bool) if loading.shunt_in_service is None
+            else np.asarray(loading.shunt_in_service, bool)}
+
+
+def _same_draw(net: Network, loading: Loading, pd_mw, qd_mvar, states: dict) -> bool:
+    for got, want in ((loading.pd_mw, pd_mw), (loading.qd_mvar, qd_mvar)):
+        if not float(np.sum(np.abs(np.asarray(got) - want))) <= MATCH_TOLERANCE * float(np.sum(np.abs(want))):
+            return False
+    if states:
+        flags = _flags(net, loading)
+        return all(np.array_equal(flags[name], want) for name, want in states.items())
+    return True
+
+
+def match_chunk(job: Job, start: int, stop: int, pd_mw: np.ndarray, qd_mvar: np.ndarray,
+                states: dict) -> np.ndarray:
+    """For samples ``start`` .. ``stop - 1`` of a built split (their loads ``pd_mw``,
+    ``qd_mvar`` and the per-sample state flags it stores, ``states``: name -> rows), the draw (attempt)
+    each was built from: the first whose loading is the sample's, drawn again without solving
+    any AC-OPF (a spanning draw solves its loadability); -1 where none of ``max_attempts`` is."""
+    tools = make_tools(job.net, job.net_hash)
+    found = np.full(stop - start, -1, np.int64)
+    for row, slot in enumerate(range(start, stop)):
+        row_states = {k: v[row] for k, v in states.items()}
+        for attempt in range(job.max_attempts):
+            loading = _draw(job, tools, slot, attempt)
+            if not isinstance(loading, str) and _same_draw(job.net, loading, pd_mw[row], qd_mvar[row], row_states):
+                found[row] = attempt
+                break
+    return found
 
 
 def write_chunk(path: Path, chunk: dict[str, np.ndarray]) -> None:
