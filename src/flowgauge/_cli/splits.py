@@ -93,7 +93,7 @@ def build(network, split, samples, seed, out, workers, scheduler, chunk, notes, 
               help="Keep the spanning design's fitted pilot in the recipe, solved here and checked against the "
                    "split's (--pilot: refuse if it differs; default: keep it if it is the split's).")
 @click.option("--workers", type=click.IntRange(min=1), default=1, show_default=True,
-              help="Local worker processes for solving the pilot.")
+              help="Local worker processes for solving the pilot and finding each sample's draw.")
 def recipe(split, out, chunk, max_attempts, train, pilot, workers) -> None:
     """Write the recipe of SPLIT (a split folder, NETWORK/SPLIT or a split hash) to --out."""
     from ..splits import recipe_from_split, write_recipe
@@ -105,6 +105,10 @@ def recipe(split, out, chunk, max_attempts, train, pilot, workers) -> None:
         kept = f", with its fitted pilot ({len(r['pilot']['slots'])} of {r['pilot']['draws']} draws kept)"
     elif pilot is None and pilot_hash_in(r["design"]["parameters"]):
         kept = ", without its pilot (solved here, it differs from the split's: a rebuild solves it again)"
+    att = r["expected"].get("sample_attempts")
+    if att is not None:
+        known = sum(a >= 0 for a in att)
+        kept += ", with each sample's draw" if known == len(att) else f", with the draws of {known} of {len(att)} samples"
     console.print(f"{shown(path, 200)}: recipe of {shown(r['network']['name'])}/{r['split']}, {r['samples']} samples, "
                   f"identity_hash {r['expected']['identity_hash']}{kept}")
 
