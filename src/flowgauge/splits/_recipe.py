@@ -212,7 +212,7 @@ def _fitted_pilot(net, pilot_hash: str, workers: int) -> dict[str, Any] | None:
     return design.pilot_record(net)
 
 
-def _found_attempts(folder: Path, m: dict[str, Any], pilot: dict[str, Any] | None, max_attempts: int,
+def _found_attempts(folder: Path, m: dict[str, Any], net, pilot: dict[str, Any] | None, max_attempts: int,
                     train, workers: int) -> list[int] | None:
     """Each sample's draw (attempt) in the split at ``folder``, found by drawing again without
     solving (:func:`._worker.match_chunk`); -1 for a sample whose draw is not among the first
@@ -220,10 +220,9 @@ def _found_attempts(folder: Path, m: dict[str, Any], pilot: dict[str, Any] | Non
     is not the one it was built with); None if no sample's is found."""
     from ._designs import design_for, draw_stream
     from ._executors import run_tasks
-    from ._load import load_split, split_network
+    from ._load import load_split
     from ._worker import ACCEPTANCE, Job, match_chunk
     sp = load_split(folder, references=False)
-    net = split_network(m, folder)
     t = None
     if m["split"].startswith("test-"):
         t_folder = Path(train) if train is not None else folder.parent / "train"
@@ -293,7 +292,8 @@ def recipe_from_split(folder: str | Path, *, chunk: int = DEFAULT_CHUNK, max_att
         raise InputError("a published split (references withheld) has no per-sample reference digests; "
                          "write the recipe from the full split", where=str(folder))
     from ._load import split_network
-    groups = sketch_groups(split_network(m, folder))
+    net = split_network(m, folder)  # once: the sketches' groups, the pilot and the draws use it
+    groups = sketch_groups(net)
     digests, sketches = {}, {}
     for key in ("inputs", "references"):
         cols = table_columns(read_table(folder / m["files"][key]["path"]))
@@ -322,8 +322,7 @@ def recipe_from_split(folder: str | Path, *, chunk: int = DEFAULT_CHUNK, max_att
         recipe["train"] = {"identity_hash": view["train"]["identity_hash"]}
     pilot_hash = pilot_hash_in(m["design"]["parameters"])
     if pilot_hash is not None and pilot is not False:
-        from ._load import split_network
-        kept = _fitted_pilot(split_network(m, folder), pilot_hash, workers)
+        kept = _fitted_pilot(net, pilot_hash, workers)
         if kept is not None:
             recipe["pilot"] = kept
         elif pilot:
@@ -331,7 +330,7 @@ def recipe_from_split(folder: str | Path, *, chunk: int = DEFAULT_CHUNK, max_att
                              f"(pilot_hash {pilot_hash[:16]}...): write the recipe where the split was built, or "
                              f"without its pilot", where=str(folder / MANIFEST_FILE))
     if attempts is None and (pilot_hash is None or "pilot" in recipe):
-        attempts = _found_attempts(folder, m, recipe.get("pilot"), max_attempts, train, workers)
+        attempts = _found_attempts(folder, m, net, recipe.get("pilot"), max_attempts, train, workers)
     if attempts:
         if len(attempts) != m["samples"] or min(attempts) < -1 or max(attempts) >= max_attempts:
             raise InputError(f"expected {m['samples']} draw numbers from 0 to {max_attempts - 1} (-1: not known)",
