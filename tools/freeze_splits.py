@@ -45,24 +45,20 @@ LARGE = ["activsg200", "pegase1354", "activsg2000", "pegase2869"]
 # rejected; docs/splits.md, "Year design").
 # pegase2869: 40 / 60 / 40 in 1,788 s, 1,136 s and 609 s with 2 workers (docs/splits.md).
 LARGE_COUNTS = {
-    "activsg200": {"train": 300, "test-id": 150, "test-ood": 150, "test-edge": 150, "test-year": 300},
     # test-id and test-edge grown from 40 to 200 samples on 2026-12-02, beside the train split
     # rebuilt from its recipe. test-ood: a 40-sample build with the concentrated kind stopped at
     # sample 10 (a concentrated slot) after 80 draws in a row were rejected (77 of them
     # loadability-infeasible); built later that day with the hotspot kind, which replaces the
     # concentrated kind above 1,000 buses (docs/splits.md, "outside")
     "pegase1354": {"train": 60, "test-id": 200, "test-ood": 200, "test-edge": 200},
-    # no test-ood yet: a 30-sample build had not finished its first chunk of 10 after 14
-    # minutes with 2 workers (outside draws are rejected even more often; docs/splits.md);
-    # test-edge is cheap here (150 in 1,349 s)
+    "activsg200": {"train": 300, "test-id": 150, "test-ood": 150, "test-edge": 150, "test-year": 300},
     # test-year added on 2026-12-02 once samples could carry switched capacitor banks (built
     # without the train split). train, test-id and test-edge refrozen on 2026-12-03 on an AVX-512
     # machine: the train recipe, written on an AVX2 machine, stops there at its pilot
     # (docs/splits.md, "How far it reproduces"), and test-ood and the learning baselines need
-    # train on disk. test-edge has 100 samples (was 150). No test-ood yet: a 40-sample build
-    # (seed 3003, 2 workers) had not finished either of its first two chunks of 10 after 21
-    # minutes and was stopped, to fit the session
-    "activsg2000": {"train": 40, "test-id": 60, "test-edge": 100, "test-year": 200},
+    # train on disk. test-edge has 100 samples (was 150). test-ood (seed 3003) built beside
+    # that train on 2026-12-03 in a later session (docs/splits.md)
+    "activsg2000": {"train": 40, "test-id": 60, "test-ood": 40, "test-edge": 100, "test-year": 200},
     # no test-ood: it needs the train split on disk, and the train recipe, rebuilt on 2026-12-02
     # to build one, differed at sample 0's references on that machine (docs/splits.md)
     "pegase2869": {"train": 40, "test-id": 60, "test-edge": 40},
