@@ -59,8 +59,9 @@ LARGE_COUNTS = {
     # train on disk. test-edge has 100 samples (was 150). test-ood (seed 3003) built beside
     # that train on 2026-12-03 in a later session (docs/splits.md)
     "activsg2000": {"train": 40, "test-id": 60, "test-ood": 40, "test-edge": 100, "test-year": 200},
-    # no test-ood: it needs the train split on disk, and the train recipe, rebuilt on 2026-12-02
-    # to build one, differed at sample 0's references on that machine (docs/splits.md)
+    # no test-ood: it needs the train split on disk, and the train recipe (no sketches) differed
+    # at sample 0's references when rebuilt on 2026-12-02 and again on 2026-12-03 on an AVX-512
+    # machine: pegase2869 must be frozen again first (docs/splits.md)
     "pegase2869": {"train": 40, "test-id": 60, "test-edge": 40},
 }
 SEEDS["test-year"] = 6006
