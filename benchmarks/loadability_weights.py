@@ -5,7 +5,9 @@ fallback dispatch weight first would save.
         [--out benchmarks/results/loadability_weights.json]
 
 Default splits (the committed results): ieee118/train:300 activsg200/train:300
-pegase1354/test-id:30 activsg2000/test-id:8, about 15 minutes on 2 cores. --quick:
+pegase1354/test-id:30 activsg2000/test-id:8, about 15 minutes on 2 cores. A test split is drawn
+beside its training split, which must be on disk (for the large systems, rebuild it first:
+flowgauge splits rebuild pegase1354/train). --quick:
 ieee118/train:50 activsg200/train:30, under a minute.
 
 A draw's loadability solve (flowgauge.opf.max_loadability) runs the default dispatch weight
@@ -64,7 +66,13 @@ def measure(spec: str, samples: int) -> dict:
     if attempts is None or min(attempts) < 0:
         raise InputError("the recipe does not record every sample's draw", where=f"recipes/{network}/{split}.json")
     net = load_network(network)
-    train = load_split(splits_root() / network / "train") if split.startswith("test-") else None
+    train = None
+    if split.startswith("test-"):
+        t_folder = splits_root() / network / "train"
+        if not (t_folder / "manifest.json").is_file():
+            raise InputError(f"a test split is drawn beside its training split, which is not on disk: rebuild it "
+                             f"first (flowgauge splits rebuild {network}/train)", where=str(t_folder))
+        train = load_split(t_folder)
     design = design_for(split, net, train, pilot=recipe.get("pilot"))
     job = Job(net=net, net_hash=network_hash(net), design=design, seed=recipe["seed"],
               acceptance=tuple(sorted(ACCEPTANCE.items())), max_attempts=recipe["build"]["max_attempts"],
