@@ -79,7 +79,7 @@ def measure(spec: str, samples: int) -> dict:
               stream=draw_stream(split, design.name))
     tools = make_tools(net, job.net_hash)
 
-    runs: list[tuple[float, str, int, float]] = []  # (weight, status, iterations, seconds) of one draw
+    runs: list[tuple[float, str, int, float]] = []  # (weight, status, iterations, seconds): one draw's runs
     extra: list[tuple[str, int, float]] = []        # the fallback run added where the default converged
     original = lmod.interior_point
     default_w = tools.settings.loadability_dispatch_weight
@@ -121,27 +121,20 @@ def measure(spec: str, samples: int) -> dict:
                 stats["default"][s0] = stats["default"].get(s0, 0) + 1
                 stats["seconds_now"] += sum(r[3] for r in runs)
                 stats["iterations_now"] += sum(r[2] for r in runs)
-                if s0 == "converged":
+                if s0 == "converged":  # the fallback run is the benchmark's own, added after it
                     s1, i1, t1 = extra[0]
+                    stats["extra_fallback_seconds"] += t1
                     if s1 == "infeasible":  # fallback first would reject this draw
                         stats["changed"] += 1
                         stats["changed_draws"].append([slot, attempt])
-                        stats["seconds_fallback_first"] += t1
-                        stats["iterations_fallback_first"] += i1
-                    else:
-                        stats["seconds_fallback_first"] += t1 + t0
-                        stats["iterations_fallback_first"] += i1 + i0
-                    stats["extra_fallback_seconds"] += t1
-                else:
+                else:  # the build's own fallback run
                     (_, s1, i1, t1), = rest
-                    key = s1
-                    stats["fallback_after_default_failed"][key] = stats["fallback_after_default_failed"].get(key, 0) + 1
-                    if s1 == "infeasible":
-                        stats["seconds_fallback_first"] += t1
-                        stats["iterations_fallback_first"] += i1
-                    else:
-                        stats["seconds_fallback_first"] += t1 + t0
-                        stats["iterations_fallback_first"] += i1 + i0
+                    failed = stats["fallback_after_default_failed"]
+                    failed[s1] = failed.get(s1, 0) + 1
+                # fallback first: the default run is skipped only where the fallback ends infeasible
+                skip = s1 == "infeasible"
+                stats["seconds_fallback_first"] += t1 + (0.0 if skip else t0)
+                stats["iterations_fallback_first"] += i1 + (0 if skip else i0)
     finally:
         lmod.interior_point, lmod.ACModel = original, saved_model
     stats["samples"] = min(samples, len(attempts))
