@@ -53,9 +53,8 @@ def measure(spec: str, samples: int) -> dict:
     import flowgauge.opf._loadability as lmod
     from flowgauge.network import load_network
     from flowgauge.splits import load_split, recipes_root, splits_root
-    from flowgauge.splits._designs import design_for, draw_stream
-    from flowgauge.splits._manifest import network_hash
-    from flowgauge.splits._worker import ACCEPTANCE, Job, _draw, make_tools
+    from flowgauge.splits._designs import design_for
+    from flowgauge.splits._worker import _draw, job_for, make_tools
 
     network, split = spec.split("/")
     path = recipes_root() / network / f"{split}.json"
@@ -74,9 +73,7 @@ def measure(spec: str, samples: int) -> dict:
                              f"first (flowgauge splits rebuild {network}/train)", where=str(t_folder))
         train = load_split(t_folder)
     design = design_for(split, net, train, pilot=recipe.get("pilot"))
-    job = Job(net=net, net_hash=network_hash(net), design=design, seed=recipe["seed"],
-              acceptance=tuple(sorted(ACCEPTANCE.items())), max_attempts=recipe["build"]["max_attempts"],
-              stream=draw_stream(split, design.name))
+    job = job_for(net, split, design, recipe["seed"], recipe["build"]["max_attempts"])
     tools = make_tools(net, job.net_hash)
 
     runs: list[tuple[float, str, int, float]] = []  # (weight, status, iterations, seconds): one draw's runs

@@ -18,13 +18,13 @@ from .._io import atomic_write_bytes, canonical_json, clip_text, hash_arrays
 from ..errors import InputError, IntegrityError
 from ..network import Network, bundled_names, load_network, write_network_json
 from ._coverage import coverage
-from ._designs import SEED_RULE, SPLIT_DESIGN, design_for, draw_stream
+from ._designs import SEED_RULE, SPLIT_DESIGN, design_for
 from ._executors import run_tasks
 from ._manifest import (FORMAT_NAME, FORMAT_VERSION, SPLIT_NAMES, STATE_FORMAT_VERSION, network_hash, seal_manifest,
                         write_manifest)
 from ._store import (BINDING_SEP, INPUTS_FILE, MANIFEST_FILE, REFERENCES_FILE, inputs_table,
                      references_table, solution_hash, table_columns, write_table)
-from ._worker import ACCEPTANCE, MAX_ATTEMPTS, Job, read_chunk, solve_chunk, solver_settings, write_chunk
+from ._worker import MAX_ATTEMPTS, Job, job_for, read_chunk, solve_chunk, solver_settings, write_chunk
 
 __all__ = ["BuildProgress", "build_split", "partial_dir", "train_identity", "DEFAULT_CHUNK"]
 
@@ -258,10 +258,8 @@ def build_split(network: str | Path | Network, split: str, *, samples: int, seed
         design = design_for(split, net, train, run=lambda fn, tasks: run_tasks(fn, tasks, workers=workers,
                                                                                 scheduler=scheduler), store=part,
                             pilot=pilot)
-        job = Job(net=net, net_hash=network_hash(net), design=design, seed=seed,
-                  acceptance=tuple(sorted(ACCEPTANCE.items())), max_attempts=max_attempts,
-                  stream=draw_stream(split, design.name),
-                  attempts=None if replay is None else tuple(int(a) for a in replay["attempts"]))
+        job = job_for(net, split, design, seed, max_attempts,
+                      attempts=None if replay is None else tuple(int(a) for a in replay["attempts"]))
         settings = solver_settings()
         if expect is not None:
             expect.check_plan(_plan(net, job, split, samples, settings, train))

@@ -218,10 +218,10 @@ def _found_attempts(folder: Path, m: dict[str, Any], net, pilot: dict[str, Any] 
     solving (:func:`._worker.match_chunk`); -1 for a sample whose draw is not among the first
     ``max_attempts`` here (its draw tips on this machine's arithmetic, or the design drawn here
     is not the one it was built with); None if no sample's is found."""
-    from ._designs import design_for, draw_stream
+    from ._designs import design_for
     from ._executors import run_tasks
     from ._load import load_split
-    from ._worker import ACCEPTANCE, Job, match_chunk
+    from ._worker import job_for, match_chunk
     sp = load_split(folder, references=False)
     t = None
     if m["split"].startswith("test-"):
@@ -229,9 +229,7 @@ def _found_attempts(folder: Path, m: dict[str, Any], net, pilot: dict[str, Any] 
         t = load_split(t_folder) if (t_folder / MANIFEST_FILE).exists() else None
     design = design_for(m["split"], net, t, run=lambda fn, tasks: run_tasks(fn, tasks, workers=workers),
                         pilot=pilot)
-    job = Job(net=net, net_hash=network_hash(net), design=design, seed=m["seed"],
-              acceptance=tuple(sorted(ACCEPTANCE.items())), max_attempts=max_attempts,
-              stream=draw_stream(m["split"], design.name))
+    job = job_for(net, m["split"], design, m["seed"], max_attempts)
     states = {name: getattr(sp, name) for name in ("branch_in_service", "gen_in_service", "shunt_in_service")
               if getattr(sp, name) is not None}
     n, step = sp.n_samples, DEFAULT_CHUNK

@@ -24,7 +24,8 @@ import numpy as np
 from .._io import atomic_write_bytes
 from ..errors import InputError, IntegrityError
 from ..network import Network
-from ._designs import Loading, sample_rng
+from ._designs import Loading, draw_stream, sample_rng
+from ._manifest import network_hash
 from ._store import BINDING_SEP
 
 __all__ = ["Job", "ACCEPTANCE", "MAX_ATTEMPTS", "solver_settings", "make_tools", "solve_chunk", "match_chunk",
@@ -50,6 +51,15 @@ class Job:
     max_attempts: int = MAX_ATTEMPTS
     stream: tuple = ()  # the split's stream of draws (_designs.draw_stream)
     attempts: tuple | None = None  # per sample slot, the draw to take (a recipe's; -1 or None: draw in turn)
+
+
+def job_for(net: Network, split: str, design, seed: int, max_attempts: int,
+            attempts: tuple | None = None) -> Job:
+    """The job that draws ``split`` with ``design`` as a build does: the split's own stream of
+    draws and the build's acceptance tolerances."""
+    return Job(net=net, net_hash=network_hash(net), design=design, seed=seed,
+               acceptance=tuple(sorted(ACCEPTANCE.items())), max_attempts=max_attempts,
+               stream=draw_stream(split, design.name), attempts=attempts)
 
 
 # AC-OPF objects of states kept per process (least recently used dropped): a state's object
